@@ -281,7 +281,7 @@ class Decoder:
             hs = (cols["head_num"].fill_null(0).to_numpy(zero_copy_only=False).astype(np.int64)
                   << 8) | cols["site_num"].fill_null(0).to_numpy(zero_copy_only=False)
             ctx["part_key"] = pa.array(_lookup_part(tl, hs, recs), pa.int64())
-            ctx["section_id"] = pa.array(_step(tl.sec_recs, tl.sec_vals, recs), pa.int32())
+            ctx["section_id"] = _nullable(_step(tl.sec_recs, tl.sec_vals, recs), pa.int32())
         elif rec.name == "PRR":
             got = [prr_ctx[r] for r in recs.tolist()]
             ctx["part_key"] = pa.array([g[0] for g in got], pa.int64())
@@ -290,8 +290,8 @@ class Decoder:
             ctx["pir_rec_index"] = pa.array(
                 [self._s.part_pir_rec[g[0]] for g in got], pa.int64())
         elif rec.name in ("DTR", "GDR"):
-            ctx["touchdown"] = pa.array(_step(tl.td_recs, tl.td_vals, recs), pa.int32())
-            ctx["section_id"] = pa.array(_step(tl.sec_recs, tl.sec_vals, recs), pa.int32())
+            ctx["touchdown"] = _nullable(_step(tl.td_recs, tl.td_vals, recs), pa.int32())
+            ctx["section_id"] = _nullable(_step(tl.sec_recs, tl.sec_vals, recs), pa.int32())
         return pa.table({**ctx, **cols})
 
     # -- default data (STDF V4, PTR 15/10 and MPR 15/15 notes) ------------------------
@@ -373,6 +373,11 @@ def _first_index(keys: np.ndarray, seen: set[int] | dict[int, str]) -> list[int]
     uniq, first = np.unique(keys, return_index=True)
     return sorted(int(f) for u, f in zip(uniq.tolist(), first.tolist(), strict=True)
                   if u not in seen)
+
+
+def _nullable(vals: np.ndarray, typ: pa.DataType) -> pa.Array:
+    """-1 (no section, before the first touchdown) is stored as null."""
+    return pa.array(vals, typ, mask=vals < 0)
 
 
 def _step(recs: list[int], vals: list[int], query: np.ndarray) -> np.ndarray:

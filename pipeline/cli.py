@@ -1,0 +1,161 @@
+"""`tandem ...`: a thin shell over the Python API.
+
+Each command parses its options, makes one call into ``pipeline`` and formats the result.
+Errors are translated once, here: a TandemError prints one line on stderr and exits with
+its code (2 usage/config, 3 some inputs rejected); anything else is a bug (exit 1).
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import sys
+from collections.abc import Callable, Sequence
+from typing import Any
+
+from .errors import TandemError, UsageError
+
+Handler = Callable[[argparse.Namespace], int]
+COMMANDS: dict[str, tuple[str, str, Callable[[argparse.ArgumentParser], None], Handler]] = {}
+
+
+def register(name: str, summary: str, example: str,
+             options: Callable[[argparse.ArgumentParser], None], handler: Handler) -> None:
+    COMMANDS[name] = (summary, example, options, handler)
+
+
+class _Parser(argparse.ArgumentParser):
+    def error(self, message: str) -> None:  # type: ignore[override]
+        raise UsageError(f"{self.prog}: {message}")
+
+
+def _store_opt(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--store", required=True, metavar="DIR",
+                   help="the store folder (created when missing)")
+
+
+def _format_opt(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--format", choices=("table", "csv", "json"), default="table",
+                   help="output format (default: table)")
+
+
+# -- ingest -----------------------------------------------------------------------------
+def _ingest_options(p: argparse.ArgumentParser) -> None:
+    p.add_argument("paths", nargs="+", metavar="PATH",
+                   help="STDF V4 logs (raw, .gz, .bz2, .xz, .zst) or timing CSVs; folders "
+                        "are searched recursively; the format is decided by content")
+    _store_opt(p)
+    p.add_argument("--workers", type=int, default=None, metavar="N",
+                   help="decode N files at once in worker processes (default: automatic)")
+    p.add_argument("--json", action="store_true", help="print the outcome as JSON")
+
+
+def _ingest(args: argparse.Namespace) -> int:
+    from .ingest import tty_progress
+    from .store import Store
+
+    if args.workers is not None and args.workers < 1:
+        raise UsageError("--workers must be at least 1")
+    report = Store(args.store).ingest(args.paths, workers=args.workers, progress=tty_progress)
+    for line in report.problems:
+        print(line, file=sys.stderr)
+    if args.json:
+        print(json.dumps(report.to_json(), indent=2, default=str))
+    else:
+        print(f"ingested {len(report.ingested)}, skipped {len(report.skipped)}, "
+              f"rejected {len(report.rejected)}")
+        for r in report.ingested:
+            print(f"  {r['status']:<8} {r['path']}  ({r['format']}, {r['records']} records, "
+                  f"{r['parts']} parts)")
+        for r in report.skipped:
+            print(f"  skipped  {r['path']}  ({r['reason']})")
+    return report.exit_code
+
+
+register("ingest", "read datalogs into a store",
+         "tandem ingest sample_logs/ --store ./store --json", _ingest_options, _ingest)
+
+
+# -- sql --------------------------------------------------------------------------------
+def _sql_options(p: argparse.ArgumentParser) -> None:
+    _store_opt(p)
+    _format_opt(p)
+    p.add_argument("query", metavar="QUERY", help="one SQL query over the catalog's views")
+
+
+def _sql(args: argparse.Namespace) -> int:
+    import duckdb
+
+    from .store import Store
+
+    store = Store(args.store)
+    try:
+        df = store.sql(args.query)
+    except duckdb.Error as e:
+        raise UsageError(f"query failed: {' '.join(str(e).split())}") from None
+    print(format_frame(df, args.format), end="")
+    return 0
+
+
+register("sql", "run a SQL query against the store's views",
+         "tandem sql --store ./store \"select site, count(*) from parts group by site\"",
+         _sql_options, _sql)
+
+
+# -- formatting -------------------------------------------------------------------------
+def format_frame(df: Any, fmt: str) -> str:
+    """A polars DataFrame as an aligned text table, CSV or a JSON array of objects."""
+    if fmt == "csv":
+        return str(df.write_csv())
+    if fmt == "json":
+        return json.dumps(df.to_dicts(), default=str, indent=1) + "\n"
+    cols = df.columns
+    rows = [["" if v is None else _cell(v) for v in r] for r in df.iter_rows()]
+    widths = [max([len(c)] + [len(r[i]) for r in rows]) for i, c in enumerate(cols)]
+    numeric = [df[c].dtype.is_numeric() for c in cols]
+
+    def line(vals: Sequence[str]) -> str:
+        return "  ".join(v.rjust(w) if n else v.ljust(w)
+                         for v, w, n in zip(vals, widths, numeric, strict=True)).rstrip()
+
+    out = [line(cols), line(["-" * w for w in widths])] + [line(r) for r in rows]
+    return "\n".join(out) + f"\n({len(rows)} row{'s' if len(rows) != 1 else ''})\n"
+
+
+def _cell(v: Any) -> str:
+    if isinstance(v, float):
+        return f"{v:.6g}"
+    return str(v).replace("\n", " ")
+
+
+# -- entry ------------------------------------------------------------------------------
+def build_parser() -> argparse.ArgumentParser:
+    p = _Parser(prog="tandem", description="Where the tester's seconds go, and which serial "
+                "test blocks could run concurrently.",
+                formatter_class=argparse.RawDescriptionHelpFormatter,
+                epilog="Run 'tandem COMMAND --help' for a command's options and an example.")
+    sub = p.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
+    for name, (summary, example, options, _) in COMMANDS.items():
+        sp = sub.add_parser(name, help=summary, description=summary,
+                            epilog=f"example:\n  {example}",
+                            formatter_class=argparse.RawDescriptionHelpFormatter)
+        options(sp)
+    return p
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    parser = build_parser()
+    try:
+        args = parser.parse_args(argv)
+        if not args.command:
+            parser.print_help()
+            return 2
+        return COMMANDS[args.command][3](args)
+    except SystemExit as e:  # --help
+        return int(e.code or 0)
+    except TandemError as e:
+        print(f"tandem: {' '.join(str(e).split())}", file=sys.stderr)
+        return e.exit_code
+    except KeyboardInterrupt:
+        print("tandem: interrupted", file=sys.stderr)
+        return 130

@@ -1,0 +1,67 @@
+"""Arrow schemas of the stored tables (without ``file_id``: that is the Hive partition).
+
+Record tables take their columns from the catalogue itself (a zero-row columnar decode),
+so a field added to a layout in ``stdf/records.py`` reaches the store with no edit here.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pyarrow as pa
+
+from .stdf.columnar import decode_columns
+from .stdf.records import RECORDS, Record
+
+_CONTEXT = {
+    "result": [("rec_index", pa.int64()), ("part_index", pa.int64()), ("part_key", pa.int64()),
+               ("section_id", pa.int32())],
+    "PRR": [("rec_index", pa.int64()), ("part_key", pa.int64()), ("part_index", pa.int64()),
+            ("touchdown", pa.int32()), ("pir_rec_index", pa.int64())],
+    "text": [("rec_index", pa.int64()), ("touchdown", pa.int32()), ("section_id", pa.int32())],
+    "other": [("rec_index", pa.int64())],
+}
+
+
+def _record_schema(rec: Record) -> pa.Schema:
+    empty = np.zeros(0, np.int64)
+    cols = decode_columns(rec, np.zeros(1, np.uint8), empty, empty, "<")
+    kind = ("result" if rec.name in ("PTR", "MPR", "FTR") else
+            rec.name if rec.name == "PRR" else
+            "text" if rec.name in ("DTR", "GDR") else "other")
+    return pa.schema(_CONTEXT[kind] + [(k, v.type) for k, v in cols.items()])
+
+
+FILES = pa.schema([
+    ("path", pa.large_string()), ("sha256", pa.large_string()), ("size_bytes", pa.int64()),
+    ("format", pa.large_string()), ("compression", pa.large_string()),
+    ("status", pa.large_string()), ("error", pa.large_string()), ("records", pa.int64()),
+    ("parts", pa.int64()), ("byte_order", pa.large_string()),
+    ("records_by_type", pa.large_string()), ("dropped_results", pa.int64()),
+    ("ingested_at", pa.timestamp("us")), ("tandem_version", pa.large_string()),
+])
+
+SECTIONS = pa.schema([
+    ("section_id", pa.int32()), ("name", pa.large_string()), ("parent_id", pa.int32()),
+    ("depth", pa.int32()), ("touchdown", pa.int32()), ("begin_rec", pa.int64()),
+    ("end_rec", pa.int64()),
+])
+
+TIMING_CSV = pa.schema([
+    ("lot_id", pa.large_string()), ("touchdown", pa.int64()), ("site", pa.int64()),
+    ("part_id", pa.large_string()), ("block", pa.large_string()), ("start_ms", pa.float64()),
+    ("end_ms", pa.float64()), ("head", pa.int64()), ("hard_bin", pa.int64()),
+    ("soft_bin", pa.int64()), ("passed", pa.bool_()), ("test_time_ms", pa.float64()),
+    ("line", pa.int64()),
+])
+
+
+def _build() -> dict[str, pa.Schema]:
+    out = {"files": FILES, "sections": SECTIONS, "timing_csv": TIMING_CSV}
+    for rec in RECORDS.values():
+        if rec.name in ("PIR", "BPS", "EPS"):
+            continue  # these become parts and sections
+        out["parts" if rec.name == "PRR" else rec.name.lower()] = _record_schema(rec)
+    return out
+
+
+TABLE_SCHEMAS: dict[str, pa.Schema] = _build()

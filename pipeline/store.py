@@ -1,0 +1,315 @@
+"""The store: Hive-partitioned Parquet per table, a file registry, and the SQL catalog.
+
+Layout (all paths relative, so a store can be moved or copied and still opens)::
+
+    tables/<table>/file_id=<id>/part-<n>.parquet   decoded rows, one folder per log
+    tables/<table>/file_id=_schema/part-0.parquet  empty, typed: keeps every glob valid
+    tables/files/file_id=<id>/part-0.parquet       registry entry, written LAST = commit
+    staging/<id>/...                               a file being written (never read)
+    catalog.duckdb                                 views only (raw_* and sql/*.sql)
+    .lock                                          held by the one writer
+
+A log becomes visible in one step: its tables are written aside in ``staging/``, renamed
+into ``tables/``, and only then is its registry entry published (itself by rename). Every
+view filters rows to registered files, so a crash at any moment leaves orphans that no
+view shows; the next writer removes them. Readers never take the lock.
+"""
+
+from __future__ import annotations
+
+import fcntl
+import os
+import shutil
+import time
+from collections.abc import Iterator
+from contextlib import contextmanager
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+import duckdb
+import polars as pl
+import pyarrow as pa
+import pyarrow.parquet as pq
+
+from .errors import StoreError
+from .schemas import TABLE_SCHEMAS
+
+SQL_DIR = Path(__file__).resolve().parent.parent / "sql"
+CATALOG_VERSION = "1"
+SCHEMA_PART = "file_id=_schema"
+COMMITTED = "status in ('ok', 'partial')"
+
+
+def _write_parquet(table: pa.Table, path: Path) -> None:
+    tmp = path.with_name(path.name + ".tmp")
+    pq.write_table(table, tmp, compression="zstd")
+    os.replace(tmp, path)
+
+
+@dataclass
+class Staged:
+    """One log's tables being written aside; ``Store.commit`` publishes them."""
+
+    file_id: str
+    root: Path
+    _writers: dict[str, tuple[pq.ParquetWriter, pa.Schema]]
+    rows: dict[str, int]
+
+    def write(self, table_name: str, table: pa.Table) -> None:
+        if table.num_rows == 0:
+            return
+        w = self._writers.get(table_name)
+        if w is None:
+            d = self.root / table_name
+            d.mkdir(parents=True, exist_ok=True)
+            schema = _target_schema(table_name, table.schema)
+            w = (pq.ParquetWriter(d / "part-0.parquet", schema, compression="zstd"), schema)
+            self._writers[table_name] = w
+        w[0].write_table(_conform(table, w[1]))
+        self.rows[table_name] = self.rows.get(table_name, 0) + table.num_rows
+
+    def close(self) -> None:
+        for w, _ in self._writers.values():
+            w.close()
+        self._writers.clear()
+
+    def discard(self) -> None:
+        self.close()
+        shutil.rmtree(self.root, ignore_errors=True)
+
+
+def _target_schema(name: str, schema: pa.Schema) -> pa.Schema:
+    known = TABLE_SCHEMAS.get(name)
+    if known is None:
+        return schema
+    extra = [f for f in schema if f.name not in known.names]
+    return pa.schema(list(known) + extra)
+
+
+def _conform(table: pa.Table, schema: pa.Schema) -> pa.Table:
+    cols = []
+    for f in schema:
+        if f.name in table.column_names:
+            col = table.column(f.name)
+            cols.append(col if col.type == f.type else col.cast(f.type))
+        else:
+            cols.append(pa.nulls(table.num_rows, f.type))
+    return pa.Table.from_arrays(cols, schema=schema)
+
+
+class Store:
+    """A folder of Parquet tables with a DuckDB catalog. ``Store(path)`` creates it."""
+
+    def __init__(self, path: str | os.PathLike[str], lock_timeout: float = 600.0):
+        self.path = Path(path)
+        self.lock_timeout = lock_timeout
+        if self.path.exists() and not self.path.is_dir():
+            raise StoreError(f"{self.path}: exists and is not a folder")
+        (self.path / "tables").mkdir(parents=True, exist_ok=True)
+        self._ensure_schema_files()
+
+    # -- writing --------------------------------------------------------------------
+    def ingest(self, paths: Any, workers: int | None = None, progress: Any = None) -> Any:
+        """Store every new log under ``paths`` (files or folders); returns IngestReport."""
+        from .ingest import ingest
+
+        return ingest(self, paths, workers=workers, progress=progress)
+
+    @contextmanager
+    def writer(self) -> Iterator[Store]:
+        """Hold the store's write lock (waits up to ``lock_timeout`` seconds)."""
+        fd = os.open(self.path / ".lock", os.O_RDWR | os.O_CREAT, 0o644)
+        deadline = time.monotonic() + self.lock_timeout
+        try:
+            while True:
+                try:
+                    fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
+                    break
+                except BlockingIOError:
+                    if time.monotonic() >= deadline:
+                        raise StoreError(
+                            f"{self.path}: another writer holds the store lock; waited "
+                            f"{self.lock_timeout:g} s (try again when it finishes)") from None
+                    time.sleep(0.1)
+            os.ftruncate(fd, 0)
+            os.write(fd, f"{os.getpid()}\n".encode())
+            self._recover()
+            yield self
+            self.write_catalog()
+        finally:
+            fcntl.flock(fd, fcntl.LOCK_UN)
+            os.close(fd)
+
+    def stage(self, file_id: str) -> Staged:
+        root = self.path / "staging" / file_id
+        shutil.rmtree(root, ignore_errors=True)
+        root.mkdir(parents=True)
+        return Staged(file_id, root, {}, {})
+
+    def commit(self, staged: Staged, entry: dict[str, Any]) -> None:
+        """Publish a staged log: tables first, registry entry last (the commit point)."""
+        staged.close()
+        part = f"file_id={staged.file_id}"
+        for d in sorted(p for p in staged.root.iterdir() if p.is_dir()):
+            target = self.path / "tables" / d.name / part
+            target.parent.mkdir(parents=True, exist_ok=True)
+            if target.exists():
+                shutil.rmtree(target)
+            os.rename(d, target)
+        self._register(entry)
+        shutil.rmtree(staged.root, ignore_errors=True)
+
+    def register_only(self, entry: dict[str, Any]) -> None:
+        """Record a log that stored no rows (rejected), so reruns skip it."""
+        self._register(entry)
+
+    def _register(self, entry: dict[str, Any]) -> None:
+        d = self.path / "tables" / "files" / f"file_id={entry['file_id']}"
+        d.mkdir(parents=True, exist_ok=True)
+        schema = TABLE_SCHEMAS["files"]
+        row = {k: [entry.get(k)] for k in schema.names}
+        _write_parquet(pa.table(row, schema=schema), d / "part-0.parquet")
+
+    def _recover(self) -> None:
+        """Remove what a crashed writer left: staging folders and unregistered rows."""
+        shutil.rmtree(self.path / "staging", ignore_errors=True)
+        registered = set(self.registry()["file_id"].to_list())
+        for table_dir in (self.path / "tables").iterdir():
+            if not table_dir.is_dir() or table_dir.name == "files":
+                continue
+            for part in table_dir.iterdir():
+                fid = part.name.removeprefix("file_id=")
+                if part.name != SCHEMA_PART and fid not in registered:
+                    shutil.rmtree(part, ignore_errors=True)
+
+    def _ensure_schema_files(self) -> None:
+        for name, schema in TABLE_SCHEMAS.items():
+            d = self.path / "tables" / name / SCHEMA_PART
+            f = d / "part-0.parquet"
+            if not f.exists():
+                d.mkdir(parents=True, exist_ok=True)
+                _write_parquet(schema.empty_table(), f)
+
+    # -- reading --------------------------------------------------------------------
+    def registry(self) -> pl.DataFrame:
+        """Every registered log (including rejected ones), newest last."""
+        con = self.connect(raw_only=True)
+        try:
+            return to_frame(con.sql("select * from raw_files order by ingested_at"))
+        finally:
+            con.close()
+
+    def known(self, sha256: str) -> dict[str, Any] | None:
+        con = self.connect(raw_only=True)
+        try:
+            row = con.execute("select file_id, status, path from raw_files where sha256 = ?",
+                              [sha256]).fetchone()
+        finally:
+            con.close()
+        return None if row is None else {"file_id": row[0], "status": row[1], "path": row[2]}
+
+    def connect(self, raw_only: bool = False) -> duckdb.DuckDBPyConnection:
+        """An in-memory DuckDB with every view over this store (no lock, no file)."""
+        con = duckdb.connect(":memory:")
+        con.execute(f"set file_search_path = '{_sql_str(str(self.path))}'")
+        for stmt in (raw_statements("files") if raw_only else catalog_statements()):
+            con.execute(stmt)
+        return con
+
+    def sql(self, query: str, params: list[Any] | None = None) -> pl.DataFrame:
+        con = self.connect()
+        try:
+            return to_frame(con.sql(query, params=params or None))
+        finally:
+            con.close()
+
+    def write_catalog(self) -> None:
+        """(Re)write catalog.duckdb for engineers' own DuckDB sessions. Skipped with no
+        error when someone has it open: the views only change with a new release."""
+        target = self.path / "catalog.duckdb"
+        stamp = self.path / ".catalog-version"
+        want = CATALOG_VERSION + ":" + _sql_fingerprint()
+        if target.exists() and stamp.exists() and stamp.read_text() == want:
+            return
+        tmp = self.path / "catalog.duckdb.tmp"
+        tmp.unlink(missing_ok=True)
+        con = duckdb.connect(str(tmp))
+        try:
+            con.execute(f"set file_search_path = '{_sql_str(str(self.path))}'")
+            for stmt in catalog_statements():
+                con.execute(stmt)
+        finally:
+            con.close()
+        os.replace(tmp, target)
+        stamp.write_text(want)
+
+
+def to_frame(result: duckdb.DuckDBPyRelation | None) -> pl.DataFrame:
+    """A query result as a polars DataFrame (through Arrow, no copy of the columns)."""
+    if result is None:  # a statement with no result set
+        return pl.DataFrame()
+    frame = pl.from_arrow(result.to_arrow_table())
+    assert isinstance(frame, pl.DataFrame)
+    return frame
+
+
+def _sql_str(s: str) -> str:
+    return s.replace("'", "''")
+
+
+def _raw_view(name: str) -> str:
+    glob = f"tables/{name}/*/*.parquet"
+    src = (f"read_parquet('{glob}', hive_partitioning = true, union_by_name = true, "
+           f"hive_types = {{'file_id': VARCHAR}})")
+    if name == "files":
+        return f"create or replace view raw_files as select * from {src}"
+    return (f"create or replace view raw_{name} as select * from {src} "
+            f"where file_id in (select file_id from raw_files where {COMMITTED})")
+
+
+def _sql_files() -> list[Path]:
+    return sorted(SQL_DIR.glob("*.sql"))
+
+
+def _sql_fingerprint() -> str:
+    import hashlib
+
+    h = hashlib.sha256()
+    for p in _sql_files():
+        h.update(p.name.encode() + p.read_bytes())
+    return h.hexdigest()[:16]
+
+
+def raw_statements(*names: str) -> list[str]:
+    """The raw_<table> views (raw_files first: the others filter by it)."""
+    wanted = names or tuple(TABLE_SCHEMAS)
+    return [_raw_view("files")] + [_raw_view(n) for n in wanted if n != "files"]
+
+
+def catalog_statements() -> list[str]:
+    """Raw views first, then the sql/ views in an order that satisfies their inputs."""
+    stmts = raw_statements()
+    views = {p.stem: p.read_text() for p in _sql_files()}
+    return stmts + [f"create or replace view {name} as\n{body.strip().rstrip(';')}"
+                    for name, body in _dependency_order(views)]
+
+
+def _dependency_order(views: dict[str, str]) -> list[tuple[str, str]]:
+    import re
+
+    done: list[tuple[str, str]] = []
+    placed: set[str] = set()
+    pending = dict(views)
+    while pending:
+        progress = False
+        for name, body in sorted(pending.items()):
+            deps = {v for v in views if v != name and re.search(rf"\b{v}\b", body)}
+            if deps <= placed:
+                done.append((name, body))
+                placed.add(name)
+                del pending[name]
+                progress = True
+        if not progress:
+            raise StoreError(f"sql/: views depend on each other in a cycle: {sorted(pending)}")
+    return done

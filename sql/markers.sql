@@ -1,0 +1,46 @@
+-- markers: one row per timing marker, our convention (README, "Timing markers"): a DTR
+-- (STDF V4, DTR 50/30) whose text is `TT block=<name> site=<n> start_us=<int>
+-- end_us=<int>` with optional `head=<n>`, tokens in any order, times in microseconds from
+-- the touchdown's start. Key: (file_id, rec_index). is_valid is false when a token is
+-- missing or end_us < start_us; such markers are kept so they can be reported.
+with
+
+dtr as (
+    select * from raw_dtr
+),
+
+tt as (
+    select
+        file_id,
+        rec_index,
+        touchdown,
+        text_dat,
+        regexp_extract(text_dat, '(?:^|\s)block=(\S+)', 1) as block_tok,
+        regexp_extract(text_dat, '(?:^|\s)site=(\d+)', 1) as site_tok,
+        regexp_extract(text_dat, '(?:^|\s)head=(\d+)', 1) as head_tok,
+        regexp_extract(text_dat, '(?:^|\s)start_us=(-?\d+)', 1) as start_tok,
+        regexp_extract(text_dat, '(?:^|\s)end_us=(-?\d+)', 1) as end_tok
+    from dtr
+    where regexp_matches(text_dat, '^\s*TT(\s|$)')
+),
+
+final as (
+    select
+        file_id,
+        rec_index,
+        touchdown,
+        nullif(block_tok, '') as block,
+        try_cast(nullif(site_tok, '') as integer) as site,
+        coalesce(try_cast(nullif(head_tok, '') as integer), 1) as head,
+        try_cast(nullif(start_tok, '') as bigint) as start_us,
+        try_cast(nullif(end_tok, '') as bigint) as end_us,
+        (try_cast(nullif(end_tok, '') as bigint) - try_cast(nullif(start_tok, '') as bigint))
+            / 1000.0 as duration_ms,
+        coalesce(block_tok <> '' and site_tok <> '' and start_tok <> '' and end_tok <> ''
+                 and try_cast(end_tok as bigint) >= try_cast(start_tok as bigint), false)
+            as is_valid,
+        text_dat as text
+    from tt
+)
+
+select * from final

@@ -1,0 +1,102 @@
+-- results: one row per PTR, per FTR, and per MPR returned result (STDF V4, PTR 15/10,
+-- FTR 15/20, MPR 15/15). Key: (file_id, rec_index, element). element is the 0-based
+-- position in MPR RTN_RSLT, else null; value is null for FTR. Limits and units already
+-- carry the default data of the first record of each test number (decoder).
+-- test_name: the record's TEST_TXT, else the first named record of that test number in
+-- the file, else the TSR TEST_NAM. block: the innermost BPS/EPS section, else the TSR
+-- SEQ_NAME of that test number, else 'unassigned'.
+-- failed: TEST_FLG bit 7; null when bit 6 (no pass/fail indication) is set.
+with
+
+ptr as (
+    select * from raw_ptr
+),
+
+mpr as (
+    select * from raw_mpr
+),
+
+ftr as (
+    select * from raw_ftr
+),
+
+sections as (
+    select file_id, section_id, name from raw_sections
+),
+
+tsr as (
+    select
+        file_id,
+        test_num,
+        max(nullif(test_nam, '')) as tsr_name,
+        max(nullif(seq_name, '')) as tsr_block
+    from raw_tsr
+    group by file_id, test_num
+),
+
+ptr_rows as (
+    select
+        file_id, part_index, head_num, site_num, test_num, test_txt, section_id, rec_index,
+        'PTR' as record, null::integer as element, result::double as value, test_flg,
+        lo_limit::double as lo_limit, hi_limit::double as hi_limit, units
+    from ptr
+),
+
+mpr_rows as (
+    select
+        file_id, part_index, head_num, site_num, test_num, test_txt, section_id, rec_index,
+        'MPR' as record, unnest(range(len(rtn_rslt)))::integer as element,
+        unnest(rtn_rslt)::double as value, test_flg,
+        lo_limit::double as lo_limit, hi_limit::double as hi_limit, units
+    from mpr
+),
+
+ftr_rows as (
+    select
+        file_id, part_index, head_num, site_num, test_num, test_txt, section_id, rec_index,
+        'FTR' as record, null::integer as element, null::double as value, test_flg,
+        null::double as lo_limit, null::double as hi_limit, null::varchar as units
+    from ftr
+),
+
+all_rows as (
+    select * from ptr_rows
+    union all
+    select * from mpr_rows
+    union all
+    select * from ftr_rows
+),
+
+first_names as (
+    select file_id, record, test_num, arg_min(test_txt, rec_index) as first_name
+    from all_rows
+    where test_txt <> ''
+    group by file_id, record, test_num
+),
+
+final as (
+    select
+        r.file_id,
+        r.part_index,
+        r.head_num::integer as head,
+        r.site_num::integer as site,
+        r.test_num::bigint as test_num,
+        coalesce(nullif(r.test_txt, ''), n.first_name, t.tsr_name) as test_name,
+        coalesce(s.name, t.tsr_block, 'unassigned') as block,
+        r.record,
+        r.element,
+        r.value,
+        case when (r.test_flg & 64) <> 0 then null else (r.test_flg & 128) <> 0 end as failed,
+        r.lo_limit,
+        r.hi_limit,
+        r.units,
+        r.rec_index,
+        r.section_id
+    from all_rows as r
+    left join first_names as n
+        on n.file_id = r.file_id and n.record = r.record and n.test_num = r.test_num
+    left join sections as s on s.file_id = r.file_id and s.section_id = r.section_id
+    left join tsr as t on t.file_id = r.file_id and t.test_num = r.test_num
+)
+
+select * from final
