@@ -13,7 +13,10 @@ import sys
 from collections.abc import Callable, Sequence
 from typing import Any
 
+from ._lean import keep_pandas_out
 from .errors import TandemError, UsageError
+
+LEAN_COMMANDS = {"ingest", "sql"}
 
 Handler = Callable[[argparse.Namespace], int]
 COMMANDS: dict[str, tuple[str, str, Callable[[argparse.ArgumentParser], None], Handler]] = {}
@@ -150,6 +153,8 @@ def main(argv: Sequence[str] | None = None) -> int:
         if not args.command:
             parser.print_help()
             return 2
+        if args.command in LEAN_COMMANDS:
+            keep_pandas_out()
         return COMMANDS[args.command][3](args)
     except SystemExit as e:  # --help
         return int(e.code or 0)

@@ -24,7 +24,7 @@ from typing import IO, Any
 import zstandard
 
 from . import __version__
-from .csvlog import read_timing_csv, sniff_timing_csv
+from ._lean import keep_pandas_out
 from .errors import FormatError, InputError, TandemError
 from .stdf.decoder import RESULT_RECORDS, Decoder, Limits
 from .store import Staged, Store
@@ -135,7 +135,7 @@ def _decode_all(store: Store, todo: list[tuple[Path, str]], workers: int | None)
         for p, digest in todo:
             yield decode_to_staging(str(store.path), str(p), digest)
         return
-    with ProcessPoolExecutor(max_workers=n) as pool:
+    with ProcessPoolExecutor(max_workers=n, initializer=keep_pandas_out) as pool:
         futures = [pool.submit(decode_to_staging, str(store.path), str(p), d) for p, d in todo]
         for fut in futures:
             yield fut.result()
@@ -154,7 +154,7 @@ def _commit(store: Store, entry: dict[str, Any], staged_root: str | None,
         report.rejected.append({"path": entry["path"], "reason": entry["error"]})
         return
     assert staged_root is not None
-    staged = Staged(entry["file_id"], Path(staged_root), {}, {})
+    staged = Staged(entry["file_id"], Path(staged_root))
     store.commit(staged, entry)
     item = {k: entry[k] for k in ("path", "file_id", "format", "records", "parts", "status")}
     if entry["status"] == "partial":
@@ -197,7 +197,7 @@ def _decode_into(p: Path, staged: Staged) -> dict[str, Any]:
                              f"empty after {compression} decompression")
         if head[2:4] == b"\x00\x0a":
             info = _decode_stdf(head, stream, staged)
-        elif sniff_timing_csv(head):
+        elif _sniff_csv(head):
             info = _decode_csv(head + stream.read(), str(p), staged)
         else:
             raise InputError("not a datalog: neither STDF V4 (no FAR record at the start) "
@@ -264,7 +264,15 @@ def _reconcile(dec: Decoder, staged: Staged) -> None:
         raise AssertionError("reconciliation failed: PRR records and stored parts differ")
 
 
+def _sniff_csv(head: bytes) -> bool:
+    from .csvlog import sniff_timing_csv  # polars loads only when a log is not STDF
+
+    return sniff_timing_csv(head)
+
+
 def _decode_csv(data: bytes, path: str, staged: Staged) -> dict[str, Any]:
+    from .csvlog import read_timing_csv
+
     log = read_timing_csv(data, path)
     staged.write("timing_csv", log.table)
     t = log.table

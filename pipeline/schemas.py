@@ -10,7 +10,7 @@ import numpy as np
 import pyarrow as pa
 
 from .stdf.columnar import decode_columns
-from .stdf.records import RECORDS, Record
+from .stdf.records import DEFAULTED, RECORDS, Record
 
 _CONTEXT = {
     "result": [("rec_index", pa.int64()), ("part_index", pa.int64()), ("part_key", pa.int64()),
@@ -22,9 +22,16 @@ _CONTEXT = {
 }
 
 
+TEXT_DICT = pa.dictionary(pa.int32(), pa.large_string())
+
+
 def _record_schema(rec: Record) -> pa.Schema:
     empty = np.zeros(0, np.int64)
     cols = decode_columns(rec, np.zeros(1, np.uint8), empty, empty, "<")
+    # Defaulted text (units, formats) is stored dictionary-encoded (decoder._choose).
+    for f in DEFAULTED.get(rec.name, ()):
+        if rec.field(f).type == "Cn":
+            cols[f.lower()] = pa.nulls(0, TEXT_DICT)
     kind = ("result" if rec.name in ("PTR", "MPR", "FTR") else
             rec.name if rec.name == "PRR" else
             "text" if rec.name in ("DTR", "GDR") else "other")

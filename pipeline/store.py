@@ -19,21 +19,24 @@ from __future__ import annotations
 
 import fcntl
 import os
+import queue
 import shutil
+import threading
 import time
 from collections.abc import Iterator
 from contextlib import contextmanager
-from dataclasses import dataclass
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
-import duckdb
-import polars as pl
 import pyarrow as pa
 import pyarrow.parquet as pq
 
 from .errors import StoreError
 from .schemas import TABLE_SCHEMAS
+
+if TYPE_CHECKING:  # duckdb and polars load only for queries: ingest starts faster
+    import duckdb
+    import polars as pl
 
 SQL_DIR = Path(__file__).resolve().parent.parent / "sql"
 CATALOG_VERSION = "1"
@@ -47,36 +50,82 @@ def _write_parquet(table: pa.Table, path: Path) -> None:
     os.replace(tmp, path)
 
 
-@dataclass
 class Staged:
-    """One log's tables being written aside; ``Store.commit`` publishes them."""
+    """One log's tables being written aside; ``Store.commit`` publishes them.
 
-    file_id: str
-    root: Path
-    _writers: dict[str, tuple[pq.ParquetWriter, pa.Schema]]
-    rows: dict[str, int]
+    Parquet encoding runs on a background thread (pyarrow releases the GIL), so the
+    decoder fills the next batch while the last one is compressed and written.
+    """
+
+    def __init__(self, file_id: str, root: Path):
+        self.file_id, self.root = file_id, root
+        self.rows: dict[str, int] = {}
+        self._writers: dict[str, tuple[pq.ParquetWriter, pa.Schema]] = {}
+        self._queue: queue.Queue[tuple[str, pa.Table] | None] = queue.Queue(maxsize=8)
+        self._error: BaseException | None = None
+        self._thread: threading.Thread | None = None
 
     def write(self, table_name: str, table: pa.Table) -> None:
         if table.num_rows == 0:
             return
+        if self._error is not None:
+            raise self._error
+        if self._thread is None:
+            self._thread = threading.Thread(target=self._drain, daemon=True)
+            self._thread.start()
+        self.rows[table_name] = self.rows.get(table_name, 0) + table.num_rows
+        self._queue.put((table_name, table))
+
+    def _drain(self) -> None:
+        while (item := self._queue.get()) is not None:
+            if self._error is None:
+                try:
+                    self._write_now(*item)
+                except BaseException as e:  # re-raised in the decoding thread
+                    self._error = e
+
+    def _write_now(self, table_name: str, table: pa.Table) -> None:
         w = self._writers.get(table_name)
         if w is None:
             d = self.root / table_name
             d.mkdir(parents=True, exist_ok=True)
             schema = _target_schema(table_name, table.schema)
-            w = (pq.ParquetWriter(d / "part-0.parquet", schema, compression="zstd"), schema)
+            w = (pq.ParquetWriter(d / "part-0.parquet", schema, **_parquet_options(schema)),
+                 schema)
             self._writers[table_name] = w
         w[0].write_table(_conform(table, w[1]))
-        self.rows[table_name] = self.rows.get(table_name, 0) + table.num_rows
 
     def close(self) -> None:
+        if self._thread is not None:
+            self._queue.put(None)
+            self._thread.join()
+            self._thread = None
         for w, _ in self._writers.values():
             w.close()
         self._writers.clear()
+        if self._error is not None:
+            raise self._error
 
     def discard(self) -> None:
-        self.close()
+        try:
+            self.close()
+        except BaseException:  # noqa: S110 - the folder is removed either way
+            pass
         shutil.rmtree(self.root, ignore_errors=True)
+
+
+# Columns that queries filter or join on keep min/max statistics; others skip them.
+_STAT_COLUMNS = {"part_index", "part_key", "test_num", "site_num", "head_num", "touchdown",
+                 "rec_index", "section_id"}
+
+
+def _parquet_options(schema: pa.Schema) -> dict[str, Any]:
+    """Fast to write and read: snappy, dictionaries for text only (names repeat), and
+    statistics only where they prune."""
+    text = [f.name for f in schema if pa.types.is_large_string(f.type)
+            or pa.types.is_string(f.type)]
+    return {"compression": "snappy", "use_dictionary": text or False,
+            "write_statistics": [f.name for f in schema if f.name in _STAT_COLUMNS] or False}
 
 
 def _target_schema(name: str, schema: pa.Schema) -> pa.Schema:
@@ -104,6 +153,8 @@ class Store:
     def __init__(self, path: str | os.PathLike[str], lock_timeout: float = 600.0):
         self.path = Path(path)
         self.lock_timeout = lock_timeout
+        self._known: dict[str, dict[str, Any]] | None = None
+        self.catalog_warning: str | None = None
         if self.path.exists() and not self.path.is_dir():
             raise StoreError(f"{self.path}: exists and is not a folder")
         (self.path / "tables").mkdir(parents=True, exist_ok=True)
@@ -134,9 +185,16 @@ class Store:
                     time.sleep(0.1)
             os.ftruncate(fd, 0)
             os.write(fd, f"{os.getpid()}\n".encode())
+            self._known = None
             self._recover()
-            yield self
-            self.write_catalog()
+            # catalog.duckdb depends only on the views, not on the data: (re)write it
+            # alongside the work instead of after it.
+            catalog = threading.Thread(target=self._write_catalog_quietly, daemon=True)
+            catalog.start()
+            try:
+                yield self
+            finally:
+                catalog.join()
         finally:
             fcntl.flock(fd, fcntl.LOCK_UN)
             os.close(fd)
@@ -145,7 +203,7 @@ class Store:
         root = self.path / "staging" / file_id
         shutil.rmtree(root, ignore_errors=True)
         root.mkdir(parents=True)
-        return Staged(file_id, root, {}, {})
+        return Staged(file_id, root)
 
     def commit(self, staged: Staged, entry: dict[str, Any]) -> None:
         """Publish a staged log: tables first, registry entry last (the commit point)."""
@@ -170,11 +228,14 @@ class Store:
         schema = TABLE_SCHEMAS["files"]
         row = {k: [entry.get(k)] for k in schema.names}
         _write_parquet(pa.table(row, schema=schema), d / "part-0.parquet")
+        if self._known is not None:
+            self._known[entry["sha256"]] = {"file_id": entry["file_id"],
+                                            "status": entry.get("status"), "path": entry["path"]}
 
     def _recover(self) -> None:
         """Remove what a crashed writer left: staging folders and unregistered rows."""
         shutil.rmtree(self.path / "staging", ignore_errors=True)
-        registered = set(self.registry()["file_id"].to_list())
+        registered = set(self.registry().column("file_id").to_pylist())
         for table_dir in (self.path / "tables").iterdir():
             if not table_dir.is_dir() or table_dir.name == "files":
                 continue
@@ -192,25 +253,34 @@ class Store:
                 _write_parquet(schema.empty_table(), f)
 
     # -- reading --------------------------------------------------------------------
-    def registry(self) -> pl.DataFrame:
-        """Every registered log (including rejected ones), newest last."""
-        con = self.connect(raw_only=True)
-        try:
-            return to_frame(con.sql("select * from raw_files order by ingested_at"))
-        finally:
-            con.close()
+    def registry(self) -> pa.Table:
+        """Every registered log (including rejected ones), read with pyarrow alone."""
+        rows = []
+        for d in sorted((self.path / "tables" / "files").glob("file_id=*")):
+            f = d / "part-0.parquet"
+            if d.name == SCHEMA_PART or not f.exists():
+                continue
+            t = pq.read_table(f, schema=TABLE_SCHEMAS["files"])
+            rows.append(t.append_column("file_id", pa.array([d.name[8:]] * t.num_rows,
+                                                            pa.large_string())))
+        if not rows:
+            return TABLE_SCHEMAS["files"].empty_table().append_column(
+                "file_id", pa.array([], pa.large_string()))
+        return pa.concat_tables(rows)
 
     def known(self, sha256: str) -> dict[str, Any] | None:
-        con = self.connect(raw_only=True)
-        try:
-            row = con.execute("select file_id, status, path from raw_files where sha256 = ?",
-                              [sha256]).fetchone()
-        finally:
-            con.close()
-        return None if row is None else {"file_id": row[0], "status": row[1], "path": row[2]}
+        """The registry entry of a log with this content, if any."""
+        if self._known is None:
+            reg = self.registry()
+            self._known = {s: {"file_id": f, "status": st, "path": p} for s, f, st, p in zip(
+                reg.column("sha256").to_pylist(), reg.column("file_id").to_pylist(),
+                reg.column("status").to_pylist(), reg.column("path").to_pylist(), strict=True)}
+        return self._known.get(sha256)
 
     def connect(self, raw_only: bool = False) -> duckdb.DuckDBPyConnection:
         """An in-memory DuckDB with every view over this store (no lock, no file)."""
+        import duckdb
+
         con = duckdb.connect(":memory:")
         con.execute(f"set file_search_path = '{_sql_str(str(self.path))}'")
         for stmt in (raw_statements("files") if raw_only else catalog_statements()):
@@ -224,6 +294,12 @@ class Store:
         finally:
             con.close()
 
+    def _write_catalog_quietly(self) -> None:
+        try:
+            self.write_catalog()
+        except Exception as e:  # a reader may hold it open; the views are unchanged
+            self.catalog_warning = f"catalog.duckdb not rewritten: {' '.join(str(e).split())}"
+
     def write_catalog(self) -> None:
         """(Re)write catalog.duckdb for engineers' own DuckDB sessions. Skipped with no
         error when someone has it open: the views only change with a new release."""
@@ -232,6 +308,8 @@ class Store:
         want = CATALOG_VERSION + ":" + _sql_fingerprint()
         if target.exists() and stamp.exists() and stamp.read_text() == want:
             return
+        import duckdb
+
         tmp = self.path / "catalog.duckdb.tmp"
         tmp.unlink(missing_ok=True)
         con = duckdb.connect(str(tmp))
@@ -247,6 +325,8 @@ class Store:
 
 def to_frame(result: duckdb.DuckDBPyRelation | None) -> pl.DataFrame:
     """A query result as a polars DataFrame (through Arrow, no copy of the columns)."""
+    import polars as pl
+
     if result is None:  # a statement with no result set
         return pl.DataFrame()
     frame = pl.from_arrow(result.to_arrow_table())

@@ -58,8 +58,165 @@ static PyObject *scan(PyObject *self, PyObject *args) {
     return Py_BuildValue("NNNNn", offs, lens, typs, subs, pos);
 }
 
+/* Column-wise field decoding of many records of one type (see columnar.py).
+ *
+ * decode(buf, offs, lens, layout, big_endian) -> list, one item per field:
+ *   fixed (kind 1):   (valid, values)          values: n * size bytes, native order
+ *   var   (kind 3-5): (valid, offsets, data)   offsets: (n + 1) int64
+ *   array (kind 6-7): (valid, offsets, values) offsets: (n + 1) int64 item counts
+ * valid: n bytes, 1 where the field is present. `layout` holds 3 bytes per field:
+ * kind, size, index of the field holding the array count (255 = none). The rules are
+ * the standard's: a field is present only while REC_LEN covers it (STDF V4, "Optional
+ * fields and missing/invalid data"); a C*n whose length runs past REC_LEN is absent and
+ * ends the record. N*1 arrays pack two items per byte, first in the low nibble.
+ */
+enum { K_FIXED = 1, K_CN = 3, K_BN = 4, K_DN = 5, K_ARR = 6, K_NIB = 7 };
+#define MAXF 64
+
+typedef struct {
+    uint8_t *valid;
+    uint8_t *a;      /* values, or offsets */
+    uint8_t *b;      /* data (var and array kinds) */
+    int64_t total;   /* bytes (var) or items (array) */
+} col_t;
+
+static uint64_t rd(const uint8_t *p, int size, int big) {
+    uint64_t v = 0;
+    for (int i = 0; i < size; i++) {
+        int k = big ? i : size - 1 - i;
+        v = (v << 8) | p[k];
+    }
+    return v;
+}
+
+static void put(uint8_t *dst, const uint8_t *src, int size, int big) {
+    /* values are stored native (little-endian on every machine we build for) */
+    if (!big) { memcpy(dst, src, (size_t)size); return; }
+    for (int i = 0; i < size; i++) dst[i] = src[size - 1 - i];
+}
+
+/* One pass over one record. With `cols` NULL it only counts var bytes / array items. */
+static void walk(const uint8_t *b, int64_t pos, int64_t end, const uint8_t *layout, int nf,
+                 int big, int64_t r, col_t *cols, int64_t *totals, int64_t *cursor) {
+    int64_t counts[MAXF];
+    int alive = 1;
+    for (int f = 0; f < nf; f++) {
+        int kind = layout[3 * f], size = layout[3 * f + 1], ci = layout[3 * f + 2];
+        counts[f] = 0;
+        int64_t need = 0, items = 0, skip = 0;
+        if (!alive) goto absent;
+        switch (kind) {
+        case K_FIXED:
+            if (pos + size > end) goto absent;
+            counts[f] = (int64_t)rd(b + pos, size, big);
+            if (cols) put(cols[f].a + r * size, b + pos, size, big);
+            pos += size;
+            break;
+        case K_CN: case K_BN: case K_DN:
+            skip = kind == K_DN ? 2 : 1;
+            if (pos + skip > end) goto absent;
+            need = kind == K_DN ? ((int64_t)rd(b + pos, 2, big) + 7) / 8 : b[pos];
+            if (pos + skip + need > end) goto absent;
+            if (cols) memcpy(cols[f].b + cursor[f], b + pos + skip, (size_t)need);
+            if (cursor) cursor[f] += need;
+            totals[f] += cols ? 0 : need;
+            pos += skip + need;
+            break;
+        case K_ARR: case K_NIB:
+            items = ci < nf ? counts[ci] : 0;
+            need = kind == K_NIB ? (items + 1) / 2 : items * size;
+            if (pos + need > end) goto absent;
+            if (cols) {
+                for (int64_t i = 0; i < items; i++) {
+                    uint8_t *dst = cols[f].b + (cursor[f] + i) * (kind == K_NIB ? 1 : size);
+                    if (kind == K_NIB) *dst = (b[pos + i / 2] >> (4 * (i % 2))) & 0x0F;
+                    else put(dst, b + pos + i * size, size, big);
+                }
+            }
+            if (cursor) cursor[f] += items;
+            totals[f] += cols ? 0 : items;
+            pos += need;
+            break;
+        default:
+            goto absent;
+        }
+        if (cols) {
+            cols[f].valid[r] = 1;
+            if (kind != K_FIXED) ((int64_t *)cols[f].a)[r + 1] = cursor[f];
+        }
+        continue;
+    absent:
+        alive = 0;
+        if (cols) {
+            cols[f].valid[r] = 0;
+            if (kind == K_FIXED) memset(cols[f].a + r * size, 0, (size_t)size);
+            else ((int64_t *)cols[f].a)[r + 1] = cursor[f];
+        }
+    }
+}
+
+static PyObject *decode(PyObject *self, PyObject *args) {
+    Py_buffer buf, offs, lens, lay;
+    int big;
+    if (!PyArg_ParseTuple(args, "y*y*y*y*i", &buf, &offs, &lens, &lay, &big)) return NULL;
+    PyObject *result = NULL, *objs[MAXF][3] = {{0}};
+    const uint8_t *b = (const uint8_t *)buf.buf;
+    const int64_t *o = (const int64_t *)offs.buf, *l = (const int64_t *)lens.buf;
+    const uint8_t *layout = (const uint8_t *)lay.buf;
+    int64_t n = offs.len / 8;
+    int nf = (int)(lay.len / 3);
+    int64_t totals[MAXF] = {0}, cursor[MAXF] = {0};
+    col_t cols[MAXF];
+    if (nf > MAXF || lens.len != offs.len) {
+        PyErr_SetString(PyExc_ValueError, "bad layout or offsets");
+        goto done;
+    }
+    for (int64_t r = 0; r < n; r++) {
+        if (o[r] < 0 || o[r] + l[r] > buf.len) {
+            PyErr_SetString(PyExc_ValueError, "record runs past the buffer");
+            goto done;
+        }
+        walk(b, o[r], o[r] + l[r], layout, nf, big, r, NULL, totals, NULL);
+    }
+    for (int f = 0; f < nf; f++) {
+        int kind = layout[3 * f], size = layout[3 * f + 1];
+        objs[f][0] = PyBytes_FromStringAndSize(NULL, n);
+        if (kind == K_FIXED) {
+            objs[f][1] = PyBytes_FromStringAndSize(NULL, n * size);
+        } else {
+            int64_t item = (kind == K_ARR) ? size : 1;
+            objs[f][1] = PyBytes_FromStringAndSize(NULL, (n + 1) * 8);
+            objs[f][2] = PyBytes_FromStringAndSize(NULL, totals[f] * item);
+        }
+        if (!objs[f][0] || !objs[f][1] || (kind != K_FIXED && !objs[f][2])) goto done;
+        cols[f].valid = (uint8_t *)PyBytes_AS_STRING(objs[f][0]);
+        cols[f].a = (uint8_t *)PyBytes_AS_STRING(objs[f][1]);
+        cols[f].b = kind == K_FIXED ? NULL : (uint8_t *)PyBytes_AS_STRING(objs[f][2]);
+        if (kind != K_FIXED) ((int64_t *)cols[f].a)[0] = 0;
+    }
+    Py_BEGIN_ALLOW_THREADS
+    for (int64_t r = 0; r < n; r++)
+        walk(b, o[r], o[r] + l[r], layout, nf, big, r, cols, totals, cursor);
+    Py_END_ALLOW_THREADS
+    result = PyList_New(nf);
+    if (!result) goto done;
+    for (int f = 0; f < nf; f++) {
+        PyObject *t = objs[f][2] ? PyTuple_Pack(3, objs[f][0], objs[f][1], objs[f][2])
+                                 : PyTuple_Pack(2, objs[f][0], objs[f][1]);
+        if (!t) { Py_CLEAR(result); goto done; }
+        PyList_SET_ITEM(result, f, t);
+    }
+done:
+    for (int f = 0; f < MAXF; f++)
+        for (int k = 0; k < 3; k++) Py_XDECREF(objs[f][k]);
+    PyBuffer_Release(&buf); PyBuffer_Release(&offs); PyBuffer_Release(&lens);
+    PyBuffer_Release(&lay);
+    return result;
+}
+
 static PyMethodDef methods[] = {
     {"scan", scan, METH_VARARGS, "Scan complete STDF record headers from an offset."},
+    {"decode", decode, METH_VARARGS, "Decode the fields of many records of one type."},
     {NULL, NULL, 0, NULL},
 };
 

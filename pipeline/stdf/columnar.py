@@ -18,11 +18,89 @@ import numpy as np
 import pyarrow as pa
 
 from .codec import decode_record
-from .records import FIXED_SIZE, NUMPY_CODE, Field, Record
+from .records import FIXED_SIZE, NUMPY_CODE, RECORDS, VARIABLE, Field, Record
 
 _ARROW = {"U1": pa.uint8(), "U2": pa.uint16(), "U4": pa.uint32(), "I1": pa.int8(),
           "I2": pa.int16(), "I4": pa.int32(), "R4": pa.float32(), "R8": pa.float64(),
           "B1": pa.uint8(), "N1": pa.uint8()}
+
+
+def _widest_run() -> int:
+    widest = 0
+    for rec in RECORDS.values():
+        run = 0
+        for f in rec.fields:
+            if f.is_array or f.type in VARIABLE:
+                run = 0
+            else:
+                run += 1 if f.type == "N1" else FIXED_SIZE[f.type]
+                widest = max(widest, run)
+    return widest
+
+
+# Callers pad the buffer with this many bytes so that a window of fixed fields starting
+# anywhere in the data never runs off the end (see _Cursor.rows).
+RUN_PAD = _widest_run()
+
+
+try:
+    from . import _scan as _c
+except ImportError:  # the optional extension did not build: the numpy path below is used
+    _c = None
+
+_KIND = {"Cn": 3, "Bn": 4, "Dn": 5}
+
+
+def _layout(rec: Record) -> bytes:
+    """The C decoder's layout: (kind, size, count-field index) per field."""
+    names = [f.name for f in rec.fields]
+    out = bytearray()
+    for f in rec.fields:
+        ci = names.index(f.count) if f.count else 255
+        if f.is_array:
+            out += bytes([7 if f.type == "N1" else 6, _size(f), ci])
+        elif f.type in _KIND:
+            out += bytes([_KIND[f.type], 0, 255])
+        else:
+            out += bytes([1, _size(f), 255])
+    return bytes(out)
+
+
+_LAYOUTS: dict[tuple[int, int], bytes] = {}
+
+
+def _decode_c(rec: Record, buf: np.ndarray, offs: np.ndarray, lens: np.ndarray,
+              endian: str) -> dict[str, pa.Array]:
+    layout = _LAYOUTS.get(rec.key)
+    if layout is None:
+        layout = _LAYOUTS[rec.key] = _layout(rec)
+    parts = _c.decode(buf, np.ascontiguousarray(offs, np.int64),  # type: ignore[union-attr]
+                      np.ascontiguousarray(lens, np.int64), layout, int(endian == ">"))
+    n = len(offs)
+    cols: dict[str, pa.Array] = {}
+    for f, got in zip(rec.fields, parts, strict=True):
+        valid = np.frombuffer(got[0], dtype=bool)
+        if f.is_array:
+            values = pa.Array.from_buffers(_ARROW[f.type], len(got[2]) // _size(f) if
+                                           f.type != "N1" else len(got[2]),
+                                           [None, pa.py_buffer(got[2])])
+            cols[f.name.lower()] = pa.Array.from_buffers(
+                pa.large_list(_ARROW[f.type]), n, [_mask(valid), pa.py_buffer(got[1])],
+                children=[values])
+        elif f.type in _KIND:
+            data = np.frombuffer(got[2], dtype=np.uint8)
+            offsets = np.frombuffer(got[1], dtype=np.int64)
+            cols[f.name.lower()] = _strings(data, offsets, valid, binary=f.type != "Cn")
+        elif f.type == "C1":
+            cols[f.name.lower()] = _strings(np.frombuffer(got[1], np.uint8),
+                                            np.arange(n + 1, dtype=np.int64), valid)
+        else:
+            raw = got[1]
+            if f.type == "N1":
+                raw = np.frombuffer(raw, np.uint8) & 0x0F
+            cols[f.name.lower()] = pa.Array.from_buffers(
+                _ARROW[f.type], n, [_mask(valid), pa.py_buffer(raw)])
+    return cols
 
 
 def needs_reference(rec: Record) -> bool:
@@ -50,14 +128,26 @@ class _Cursor:
         self.alive = ok
         return ok
 
-    def gather(self, start: np.ndarray, size: int, code: str) -> np.ndarray:
-        """Values of `size`-byte fields at `start` (clipped so absent ones read junk)."""
-        if size == 1:
-            raw = self.buf[np.minimum(start, self.last)]
+    def rows(self, start: np.ndarray, width: int) -> np.ndarray:
+        """An (n, width) copy of the bytes at each start (absent ones read junk)."""
+        if width == 1:
+            return self.buf[np.minimum(start, self.last)][:, None]
+        if len(self.buf) < width:
+            return np.zeros((len(start), width), np.uint8)
+        windows = np.lib.stride_tricks.sliding_window_view(self.buf, width)
+        return windows[np.minimum(start, len(self.buf) - width)]
+
+    def values(self, block: np.ndarray, code: str) -> np.ndarray:
+        """Native-endian values from an (n, size) byte block."""
+        if block.shape[1] == 1:
+            raw = np.ascontiguousarray(block[:, 0])
             return raw.view(np.dtype(code)) if code != "u1" else raw
-        idx = np.minimum(start[:, None] + np.arange(size), self.last)
-        raw = np.ascontiguousarray(self.buf[idx])
-        return raw.view(np.dtype(self.endian + code))[:, 0]
+        vals = np.ascontiguousarray(block).view(np.dtype(self.endian + code))[:, 0]
+        # Arrow buffers are native-endian: swap a big-endian file's values once here.
+        return vals if vals.dtype.isnative else vals.astype(vals.dtype.newbyteorder("="))
+
+    def gather(self, start: np.ndarray, size: int, code: str) -> np.ndarray:
+        return self.values(self.rows(start, size), code)
 
     def bytes_at(self, start: np.ndarray, lengths: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         """Concatenated bytes of variable-length fields, and their Arrow offsets."""
@@ -70,19 +160,34 @@ class _Cursor:
         return self.buf[idx], offsets
 
 
-def _scalar(cur: _Cursor, f: Field) -> pa.Array:
-    size = FIXED_SIZE[f.type] if f.type != "N1" else 1
-    ok = cur.fits(size)
-    if f.type == "C1":
-        data = cur.gather(cur.pos, 1, "u1")
-        cur.pos += size
-        return _strings(data.astype(np.uint8), np.arange(len(ok) + 1, dtype=np.int64), ok)
-    vals = cur.gather(cur.pos, size, NUMPY_CODE[f.type])
-    if f.type == "N1":
-        vals = vals & 0x0F
-    cur.pos += size
-    return pa.Array.from_buffers(_ARROW[f.type], len(vals),
-                                 [_mask(ok), pa.py_buffer(np.ascontiguousarray(vals))])
+def _size(f: Field) -> int:
+    return 1 if f.type == "N1" else FIXED_SIZE[f.type]
+
+
+def _run(cur: _Cursor, fields: list[Field]) -> dict[str, pa.Array]:
+    """Consecutive fixed-size scalar fields, read as one (n, width) byte block."""
+    width = sum(_size(f) for f in fields)
+    block = cur.rows(cur.pos, width)
+    start = cur.pos
+    out: dict[str, pa.Array] = {}
+    off = 0
+    for f in fields:
+        size = _size(f)
+        cur.pos = start + off
+        ok = cur.fits(size)
+        part = block[:, off:off + size]
+        off += size
+        if f.type == "C1":
+            data = np.ascontiguousarray(part[:, 0])
+            out[f.name] = _strings(data, np.arange(len(ok) + 1, dtype=np.int64), ok)
+            continue
+        vals = cur.values(part, NUMPY_CODE[f.type])
+        if f.type == "N1":
+            vals = vals & 0x0F
+        out[f.name] = pa.Array.from_buffers(
+            _ARROW[f.type], len(vals), [_mask(ok), pa.py_buffer(np.ascontiguousarray(vals))])
+    cur.pos = start + width
+    return out
 
 
 def _strings(data: np.ndarray, offsets: np.ndarray, valid: np.ndarray,
@@ -143,24 +248,39 @@ def _array(cur: _Cursor, f: Field, count: np.ndarray) -> pa.Array:
 
 
 def decode_columns(rec: Record, buf: np.ndarray, offs: np.ndarray, lens: np.ndarray,
-                   endian: str) -> dict[str, pa.Array]:
-    """Every field of `rec` for the records whose payloads start at `offs`."""
+                   endian: str, numpy_only: bool = False) -> dict[str, pa.Array]:
+    """Every field of `rec` for the records whose payloads start at `offs`: by the C
+    helper when it was built, else column by column in numpy (``numpy_only`` forces
+    that path; tests compare the two)."""
     if needs_reference(rec):
         return _reference_columns(rec, buf, offs, lens, endian)
+    if _c is not None and not numpy_only:
+        return _decode_c(rec, buf, offs, lens, endian)
+    if len(offs) and len(buf) < int((offs + lens).max()) + RUN_PAD:
+        buf = np.concatenate([buf, np.zeros(RUN_PAD, np.uint8)])  # callers normally pad
     cur = _Cursor(buf, offs, lens, endian)
     cols: dict[str, pa.Array] = {}
     counts: dict[str, np.ndarray] = {}
-    for f in rec.fields:
+    counted = {f.count for f in rec.fields if f.count}
+    fields = list(rec.fields)
+    i = 0
+    while i < len(fields):
+        f = fields[i]
         if f.is_array:
-            col = _array(cur, f, counts[f.count])
+            cols[f.name] = _array(cur, f, counts[f.count])  # type: ignore[index]
+            i += 1
         elif f.type in ("Cn", "Bn", "Dn"):
-            col = _varlen(cur, f)
+            cols[f.name] = _varlen(cur, f)
+            i += 1
         else:
-            col = _scalar(cur, f)
-            if any(g.count == f.name for g in rec.fields):
-                counts[f.name] = col.fill_null(0).to_numpy(zero_copy_only=False)
-        cols[f.name.lower()] = col
-    return cols
+            j = i
+            while j < len(fields) and not fields[j].is_array and fields[j].type not in VARIABLE:
+                j += 1
+            cols.update(_run(cur, fields[i:j]))
+            i = j
+        for name in counted & cols.keys() - counts.keys():
+            counts[name] = cols[name].fill_null(0).to_numpy(zero_copy_only=False)
+    return {name.lower(): col for name, col in cols.items()}
 
 
 def _reference_columns(rec: Record, buf: np.ndarray, offs: np.ndarray, lens: np.ndarray,

@@ -21,7 +21,7 @@ import pyarrow.compute as pc
 
 from ..errors import FormatError
 from .codec import detect_endian
-from .columnar import decode_columns
+from .columnar import RUN_PAD, decode_columns
 from .records import BY_NAME, DEFAULTED, RECORDS, Record
 from .scan import scan
 
@@ -86,7 +86,6 @@ class Decoder:
         self._held: dict[str, list[pa.Table]] = {n: [] for n in RESULT_RECORDS}
         self._first: dict[str, dict[int, dict]] = {}
         self._defaults: dict[str, pa.Table] = {}
-        self._names: dict[str, dict[int, str]] = {n: {} for n in RESULT_RECORDS}
         self._stopped = False
 
     # -- public ---------------------------------------------------------------------
@@ -132,7 +131,10 @@ class Decoder:
             offs, lens, typ, sub = offs[:k], lens[:k], typ[:k], sub[:k]
             end = int(offs[k - 1]) + 4 + int(lens[k - 1]) if k else 0
             self._stopped = True
-        chunk = np.frombuffer(bytes(self._buf[:end]), dtype=np.uint8)
+        # PAD zero bytes after the data let the columnar reader take fixed-width windows at
+        # any record start without bounds checks (columnar.RUN_PAD).
+        chunk = np.zeros(end + RUN_PAD, dtype=np.uint8)
+        chunk[:end] = np.frombuffer(self._buf, dtype=np.uint8, count=end)
         del self._buf[:end]
         first_rec = self._rec
         self._rec += len(offs)
@@ -296,36 +298,26 @@ class Decoder:
 
     # -- default data (STDF V4, PTR 15/10 and MPR 15/15 notes) ------------------------
     def _fill_defaults(self, rec: Record, t: pa.Table) -> pa.Table:
-        names = self._names[rec.name]
-        tn = t.column("test_num").to_numpy()
-        txt = t.column("test_txt").combine_chunks()
-        named = pc.fill_null(pc.greater(pc.utf8_length(txt), 0), False).to_numpy(
-            zero_copy_only=False)
-        for i in _first_index(tn[named], names):
-            names[int(tn[named][i])] = txt[int(np.flatnonzero(named)[i])].as_py()
-        if names:
-            known = np.array(sorted(names), dtype=np.int64)
-            vals = pa.array([names[k] for k in known.tolist()], pa.large_string())
-            pos = np.clip(np.searchsorted(known, tn), 0, len(known) - 1)
-            hit = (known[pos] == tn) & ~named
-            filled = pc.if_else(pa.array(hit), vals.take(pa.array(pos)), txt)
-            t = t.set_column(t.schema.get_field_index("test_txt"), "test_txt", filled)
+        """Default data (STDF V4, PTR 15/10 and MPR 15/15). Empty TEST_TXT is left as
+        written: the results view names it from the first named record of the file."""
         fields = DEFAULTED.get(rec.name)
         if not fields:
             return t
-        return self._apply_defaults(rec.name, t, tn, fields)
+        return self._apply_defaults(rec.name, t, t.column("test_num").to_numpy(), fields)
 
     def _apply_defaults(self, name: str, t: pa.Table, tn: np.ndarray,
                         fields: tuple[str, ...]) -> pa.Table:
         cols = [f.lower() for f in fields]
-        opt = t.column("opt_flag").combine_chunks()
-        invalid = _invalid_masks(name, opt, cols)
+        opt_col = t.column("opt_flag").combine_chunks()
+        opt = opt_col.fill_null(0).to_numpy(zero_copy_only=False)
+        invalid = {c: (opt >> b) & 1 == 1 for c, b in _INVALID_BITS.items()
+                   if c in cols and (name == "MPR" or c not in ("start_in", "incr_in"))}
         table = self._defaults.get(name)
         seen = set() if table is None else set(table.column("test_num").to_pylist())
-        new = [i for i in _first_index(tn, seen)]
+        new = _first_index(tn, seen)
         if new:
-            rows = t.take(pa.array(new)).select(["test_num", "opt_flag", *cols])
-            rows = _null_where(rows, {c: m.take(pa.array(new)) for c, m in invalid.items()})
+            rows = t.take(_ints(np.array(new))).select(["test_num", "opt_flag", *cols])
+            rows = _null_where(rows, {c: m[new] for c, m in invalid.items()})
             table = rows if table is None else pa.concat_tables([table, rows])
             table = table.combine_chunks()
             self._defaults[name] = table
@@ -333,15 +325,24 @@ class Decoder:
         keys = table.column("test_num").to_numpy()
         order = np.argsort(keys)
         pos = order[np.searchsorted(keys[order], tn)]
-        take = pa.array(pos)
-        opt_eff = pc.coalesce(opt, table.column("opt_flag").combine_chunks().take(take))
+        default_opt = table.column("opt_flag").combine_chunks().fill_null(0).to_numpy(
+            zero_copy_only=False)
+        opt_eff = np.where(_valid(opt_col), opt, default_opt[pos])
         for c in cols:
             col = t.column(c).combine_chunks()
-            use_default = pc.or_(pc.is_null(col), invalid[c]) if c in invalid \
-                else pc.is_null(col)
-            val = pc.if_else(use_default, table.column(c).combine_chunks().take(take), col)
-            val = _apply_no_limit(name, c, val, opt_eff)
-            t = t.set_column(t.schema.get_field_index(c), c, val)
+            use_default = ~_valid(col)
+            if c in invalid:
+                use_default |= invalid[c]
+            val = col
+            if use_default.any():
+                val = _choose(use_default, table.column(c).combine_chunks(), pos, col)
+            bit = _NO_LIMIT_BITS.get(c)
+            if bit is not None:
+                none = (opt_eff >> bit) & 1 == 1
+                if none.any():
+                    val = pc.if_else(_bools(none), pa.nulls(len(val), val.type), val)
+            if val is not col:
+                t = t.set_column(t.schema.get_field_index(c), c, val)
         return t
 
     def _release(self, name: str, table: pa.Table) -> list[tuple[str, pa.Table]]:
@@ -411,29 +412,50 @@ _INVALID_BITS = {"res_scal": 0, "lo_limit": 4, "hi_limit": 5, "start_in": 1, "in
 _NO_LIMIT_BITS = {"lo_spec": 2, "hi_spec": 3, "lo_limit": 6, "hi_limit": 7}
 
 
-def _bit(opt: pa.Array, bit: int) -> pa.Array:
-    return pc.fill_null(pc.not_equal(pc.bit_wise_and(opt, pa.scalar(1 << bit, opt.type)),
-                                     pa.scalar(0, opt.type)), False)
+def _choose(use_default: np.ndarray, defaults: pa.Array, pos: np.ndarray,
+            col: pa.Array) -> pa.Array:
+    """Per row: defaults[pos] where use_default, else col. Text comes out dictionary-
+    encoded (a handful of distinct units and formats), which costs indices, not copies."""
+    if not pa.types.is_large_string(col.type):
+        return pc.if_else(_bools(use_default), defaults.take(_ints(pos)), col)
+    own = pc.dictionary_encode(col)
+    n_own = len(own.dictionary)
+    own_idx = own.indices.fill_null(0).to_numpy(zero_copy_only=False).astype(np.int32)
+    idx = np.where(use_default, n_own + pos, own_idx).astype(np.int32)
+    valid = np.where(use_default, _valid(defaults)[pos], _valid(col))
+    dictionary = pa.concat_arrays([own.dictionary, defaults.fill_null("")])
+    indices = pa.Array.from_buffers(pa.int32(), len(idx), [
+        None if valid.all() else pa.py_buffer(np.packbits(valid, bitorder="little")),
+        pa.py_buffer(idx)])
+    return pa.DictionaryArray.from_arrays(indices, dictionary).cast(
+        pa.dictionary(pa.int32(), pa.large_string()))
 
 
-def _invalid_masks(name: str, opt: pa.Array, cols: list[str]) -> dict[str, pa.Array]:
-    out = {}
-    for c, b in _INVALID_BITS.items():
-        if c in cols and (name == "MPR" or c not in ("start_in", "incr_in")):
-            out[c] = _bit(opt, b)
-    return out
+def _valid(col: pa.Array) -> np.ndarray:
+    """The validity of an Arrow array as numpy booleans."""
+    if col.null_count == 0:
+        return np.ones(len(col), dtype=bool)
+    bitmap = col.buffers()[0]
+    bits = np.unpackbits(np.frombuffer(bitmap, np.uint8), bitorder="little")
+    return bits[col.offset:col.offset + len(col)].astype(bool)
 
 
-def _null_where(t: pa.Table, masks: dict[str, pa.Array]) -> pa.Table:
+def _bools(mask: np.ndarray) -> pa.Array:
+    """numpy booleans as an Arrow array, without pyarrow's pandas-aware conversion."""
+    return pa.Array.from_buffers(pa.bool_(), len(mask),
+                                 [None, pa.py_buffer(np.packbits(mask, bitorder="little"))])
+
+
+def _ints(vals: np.ndarray) -> pa.Array:
+    v = np.ascontiguousarray(vals, dtype=np.int64)
+    return pa.Array.from_buffers(pa.int64(), len(v), [None, pa.py_buffer(v)])
+
+
+def _null_where(t: pa.Table, masks: dict[str, np.ndarray]) -> pa.Table:
     for c, m in masks.items():
+        if not m.any():
+            continue
         col = t.column(c).combine_chunks()
         t = t.set_column(t.schema.get_field_index(c), c,
-                         pc.if_else(m, pa.nulls(len(col), col.type), col))
+                         pc.if_else(_bools(m), pa.nulls(len(col), col.type), col))
     return t
-
-
-def _apply_no_limit(name: str, c: str, val: pa.Array, opt: pa.Array) -> pa.Array:
-    b = _NO_LIMIT_BITS.get(c)
-    if b is None:
-        return val
-    return pc.if_else(_bit(opt, b), pa.nulls(len(val), val.type), val)
