@@ -105,6 +105,22 @@ register("sql", "run a SQL query against the store's views",
          _sql_options, _sql)
 
 
+# -- demo -------------------------------------------------------------------------------
+def _demo_options(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--out", default="demo-out", metavar="DIR",
+                   help="where the demo writes its store and outputs (default: ./demo-out)")
+
+
+def _demo(args: argparse.Namespace) -> int:
+    from .demo import run_demo
+
+    return run_demo(args.out, print)
+
+
+register("demo", "run the whole job on the bundled sample logs",
+         "tandem demo --out ./demo-out", _demo_options, _demo)
+
+
 # -- formatting -------------------------------------------------------------------------
 def format_frame(df: Any, fmt: str) -> str:
     """A polars DataFrame as an aligned text table, CSV or a JSON array of objects."""

@@ -214,7 +214,7 @@ def _fast_cells(body: bytes, header: _Header) -> pl.DataFrame | None:
     if spanning or blank.any():
         lines, length = _record_lines(arr, parity)
         # an all-empty row is blank only when it is no more than a line end
-        if False:
+        if np.any(blank & (length > 1)):
             return None
     cells = raw.select(pl.col(f"c{i}").alias(name) for name, i in header.index.items())
     cells = cells.with_columns(line=pl.Series(lines, dtype=pl.Int64))

@@ -6,6 +6,8 @@ so a field added to a layout in ``stdf/records.py`` reaches the store with no ed
 
 from __future__ import annotations
 
+import functools
+
 import numpy as np
 import pyarrow as pa
 
@@ -62,7 +64,9 @@ TIMING_CSV = pa.schema([
 ])
 
 
-def _build() -> dict[str, pa.Schema]:
+@functools.cache
+def table_schemas() -> dict[str, pa.Schema]:
+    """Every stored table's schema, built on first use."""
     out = {"files": FILES, "sections": SECTIONS, "timing_csv": TIMING_CSV}
     for rec in RECORDS.values():
         if rec.name in ("PIR", "BPS", "EPS"):
@@ -70,5 +74,3 @@ def _build() -> dict[str, pa.Schema]:
         out["parts" if rec.name == "PRR" else rec.name.lower()] = _record_schema(rec)
     return out
 
-
-TABLE_SCHEMAS: dict[str, pa.Schema] = _build()

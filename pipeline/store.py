@@ -32,7 +32,7 @@ import pyarrow as pa
 import pyarrow.parquet as pq
 
 from .errors import StoreError
-from .schemas import TABLE_SCHEMAS
+from .schemas import table_schemas
 
 if TYPE_CHECKING:  # duckdb and polars load only for queries: ingest starts faster
     import duckdb
@@ -129,7 +129,7 @@ def _parquet_options(schema: pa.Schema) -> dict[str, Any]:
 
 
 def _target_schema(name: str, schema: pa.Schema) -> pa.Schema:
-    known = TABLE_SCHEMAS.get(name)
+    known = table_schemas().get(name)
     if known is None:
         return schema
     extra = [f for f in schema if f.name not in known.names]
@@ -225,7 +225,7 @@ class Store:
     def _register(self, entry: dict[str, Any]) -> None:
         d = self.path / "tables" / "files" / f"file_id={entry['file_id']}"
         d.mkdir(parents=True, exist_ok=True)
-        schema = TABLE_SCHEMAS["files"]
+        schema = table_schemas()["files"]
         row = {k: [entry.get(k)] for k in schema.names}
         _write_parquet(pa.table(row, schema=schema), d / "part-0.parquet")
         if self._known is not None:
@@ -245,7 +245,7 @@ class Store:
                     shutil.rmtree(part, ignore_errors=True)
 
     def _ensure_schema_files(self) -> None:
-        for name, schema in TABLE_SCHEMAS.items():
+        for name, schema in table_schemas().items():
             d = self.path / "tables" / name / SCHEMA_PART
             f = d / "part-0.parquet"
             if not f.exists():
@@ -260,11 +260,11 @@ class Store:
             f = d / "part-0.parquet"
             if d.name == SCHEMA_PART or not f.exists():
                 continue
-            t = pq.read_table(f, schema=TABLE_SCHEMAS["files"])
+            t = pq.read_table(f, schema=table_schemas()["files"])
             rows.append(t.append_column("file_id", pa.array([d.name[8:]] * t.num_rows,
                                                             pa.large_string())))
         if not rows:
-            return TABLE_SCHEMAS["files"].empty_table().append_column(
+            return table_schemas()["files"].empty_table().append_column(
                 "file_id", pa.array([], pa.large_string()))
         return pa.concat_tables(rows)
 
@@ -363,7 +363,7 @@ def _sql_fingerprint() -> str:
 
 def raw_statements(*names: str) -> list[str]:
     """The raw_<table> views (raw_files first: the others filter by it)."""
-    wanted = names or tuple(TABLE_SCHEMAS)
+    wanted = names or tuple(table_schemas())
     return [_raw_view("files")] + [_raw_view(n) for n in wanted if n != "files"]
 
 
