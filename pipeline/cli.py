@@ -105,6 +105,68 @@ register("sql", "run a SQL query against the store's views",
          _sql_options, _sql)
 
 
+# -- times / sites ----------------------------------------------------------------------
+def _lot_opt(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--lot", metavar="LOT", help="only this lot (default: every lot)")
+
+
+def _times_options(p: argparse.ArgumentParser) -> None:
+    _store_opt(p)
+    _lot_opt(p)
+    p.add_argument("--blocks", metavar="FILE",
+                   help="block map whose test-number/name rules assign tests that no "
+                        "section or TSR places (kept in the store for later queries)")
+    _format_opt(p)
+
+
+def _times(args: argparse.Namespace) -> int:
+    from . import timing
+    from .store import Store
+
+    store = Store(args.store)
+    if args.blocks:
+        from .blockmap import load_block_map
+
+        timing.save_block_rules(store, load_block_map(args.blocks))
+    problems = timing.refresh_estimates(store)
+    table = timing.block_table(store, args.lot)
+    if args.format != "table":
+        print(format_frame(table, args.format), end="")
+    else:
+        print(timing.render_times(store, table, args.lot))
+    for line in problems + timing.warnings(store, args.lot):
+        print(f"warning: {line}", file=sys.stderr)
+    return 0
+
+
+register("times", "where the seconds go: block times per lot and site, ranked",
+         "tandem times --store ./store --lot PF4-L0231", _times_options, _times)
+
+
+def _sites_options(p: argparse.ArgumentParser) -> None:
+    _store_opt(p)
+    _lot_opt(p)
+    _format_opt(p)
+
+
+def _sites(args: argparse.Namespace) -> int:
+    from . import timing
+    from .store import Store
+
+    store = Store(args.store)
+    timing.refresh_estimates(store)
+    summaries = timing.site_summaries(store, args.lot)
+    if args.format != "table":
+        print(format_frame(timing.sites_frame(summaries), args.format), end="")
+    else:
+        print(timing.render_sites(summaries))
+    return 0
+
+
+register("sites", "the multi-site view: touchdown time, MSE, imbalance, shared instruments",
+         "tandem sites --store ./store --lot PF4-L0231", _sites_options, _sites)
+
+
 # -- demo -------------------------------------------------------------------------------
 def _demo_options(p: argparse.ArgumentParser) -> None:
     p.add_argument("--out", default="demo-out", metavar="DIR",

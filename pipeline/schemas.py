@@ -64,6 +64,23 @@ TIMING_CSV = pa.schema([
 ])
 
 
+# Tables Tandem derives from the logs (rewritten per lot by `tandem times`), and settings
+# the engineer gives it (the block map's assignment rules), stored beside the tables.
+DERIVED: dict[str, pa.Schema] = {
+    "block_estimates": pa.schema([
+        ("lot_id", pa.large_string()), ("block", pa.large_string()), ("site", pa.int32()),
+        ("parts", pa.int64()), ("mean_ms", pa.float64()), ("ci_low_ms", pa.float64()),
+        ("ci_high_ms", pa.float64()), ("identifiable", pa.bool_()),
+        ("warning", pa.large_string()), ("file_ids", pa.large_string()),
+        ("computed_at", pa.timestamp("us")),
+    ]),
+    "block_rules": pa.schema([
+        ("priority", pa.int32()), ("block", pa.large_string()), ("kind", pa.large_string()),
+        ("lo", pa.int64()), ("hi", pa.int64()), ("pattern", pa.large_string()),
+    ]),
+}
+
+
 @functools.cache
 def table_schemas() -> dict[str, pa.Schema]:
     """Every stored table's schema, built on first use."""

@@ -32,7 +32,7 @@ import pyarrow as pa
 import pyarrow.parquet as pq
 
 from .errors import StoreError
-from .schemas import table_schemas
+from .schemas import DERIVED, table_schemas
 
 if TYPE_CHECKING:  # duckdb and polars load only for queries: ingest starts faster
     import duckdb
@@ -245,12 +245,24 @@ class Store:
                     shutil.rmtree(part, ignore_errors=True)
 
     def _ensure_schema_files(self) -> None:
-        for name, schema in table_schemas().items():
-            d = self.path / "tables" / name / SCHEMA_PART
+        wanted = [(self.path / "tables" / n / SCHEMA_PART, s) for n, s in table_schemas().items()]
+        wanted += [(self.path / "derived" / n / "key=_schema", s) for n, s in DERIVED.items()]
+        for d, schema in wanted:
             f = d / "part-0.parquet"
             if not f.exists():
                 d.mkdir(parents=True, exist_ok=True)
                 _write_parquet(schema.empty_table(), f)
+
+    def write_derived(self, name: str, key: str, table: pa.Table | None) -> None:
+        """Replace one key's rows of a derived table (None removes them), atomically."""
+        import hashlib
+
+        d = self.path / "derived" / name / f"key={hashlib.sha256(key.encode()).hexdigest()[:16]}"
+        if table is None:
+            shutil.rmtree(d, ignore_errors=True)
+            return
+        d.mkdir(parents=True, exist_ok=True)
+        _write_parquet(_conform(table, DERIVED[name]), d / "part-0.parquet")
 
     # -- reading --------------------------------------------------------------------
     def registry(self) -> pa.Table:
@@ -339,6 +351,10 @@ def _sql_str(s: str) -> str:
 
 
 def _raw_view(name: str) -> str:
+    if name in DERIVED:
+        return (f"create or replace view raw_{name} as select * from read_parquet("
+                f"'derived/{name}/*/*.parquet', hive_partitioning = false, "
+                f"union_by_name = true)")
     glob = f"tables/{name}/*/*.parquet"
     src = (f"read_parquet('{glob}', hive_partitioning = true, union_by_name = true, "
            f"hive_types = {{'file_id': VARCHAR}})")
@@ -363,7 +379,7 @@ def _sql_fingerprint() -> str:
 
 def raw_statements(*names: str) -> list[str]:
     """The raw_<table> views (raw_files first: the others filter by it)."""
-    wanted = names or tuple(table_schemas())
+    wanted = names or (*table_schemas(), *DERIVED)
     return [_raw_view("files")] + [_raw_view(n) for n in wanted if n != "files"]
 
 
@@ -384,7 +400,8 @@ def _dependency_order(views: dict[str, str]) -> list[tuple[str, str]]:
     while pending:
         progress = False
         for name, body in sorted(pending.items()):
-            deps = {v for v in views if v != name and re.search(rf"\b{v}\b", body)}
+            code = re.sub(r"--[^\n]*", "", body)  # comments may name other views
+            deps = {v for v in views if v != name and re.search(rf"\b{v}\b", code)}
             if deps <= placed:
                 done.append((name, body))
                 placed.add(name)

@@ -4,7 +4,8 @@
 -- carry the default data of the first record of each test number (decoder).
 -- test_name: the record's TEST_TXT, else the first named record of that test number in
 -- the file, else the TSR TEST_NAM. block: the innermost BPS/EPS section, else the TSR
--- SEQ_NAME of that test number, else 'unassigned'.
+-- SEQ_NAME of that test number, else the first matching rule of the block map last
+-- given to `tandem times --blocks` (test-number range or name glob), else 'unassigned'.
 -- failed: TEST_FLG bit 7; null when bit 6 (no pass/fail indication) is set.
 with
 
@@ -32,6 +33,10 @@ tsr as (
         max(nullif(seq_name, '')) as tsr_block
     from raw_tsr
     group by file_id, test_num
+),
+
+rules as (
+    select * from raw_block_rules
 ),
 
 ptr_rows as (
@@ -74,6 +79,28 @@ first_names as (
     group by file_id, record, test_num
 ),
 
+tests as (
+    select distinct r.file_id, r.record, r.test_num,
+           coalesce(n.first_name, t.tsr_name) as test_name,
+           t.tsr_block
+    from all_rows as r
+    left join first_names as n
+        on n.file_id = r.file_id and n.record = r.record and n.test_num = r.test_num
+    left join tsr as t on t.file_id = r.file_id and t.test_num = r.test_num
+),
+
+test_blocks as (
+    select
+        tests.file_id, tests.record, tests.test_num, tests.test_name,
+        coalesce(any_value(tests.tsr_block), arg_min(rules.block, rules.priority))
+            as fallback_block
+    from tests
+    left join rules
+        on (rules.kind = 'range' and tests.test_num between rules.lo and rules.hi)
+        or (rules.kind = 'pattern' and tests.test_name glob rules.pattern)
+    group by tests.file_id, tests.record, tests.test_num, tests.test_name
+),
+
 final as (
     select
         r.file_id,
@@ -81,8 +108,8 @@ final as (
         r.head_num::integer as head,
         r.site_num::integer as site,
         r.test_num::bigint as test_num,
-        coalesce(nullif(r.test_txt, ''), n.first_name, t.tsr_name) as test_name,
-        coalesce(s.name, t.tsr_block, 'unassigned') as block,
+        coalesce(nullif(r.test_txt, ''), tb.test_name) as test_name,
+        coalesce(s.name, tb.fallback_block, 'unassigned') as block,
         r.record,
         r.element,
         r.value,
@@ -93,10 +120,9 @@ final as (
         r.rec_index,
         r.section_id
     from all_rows as r
-    left join first_names as n
-        on n.file_id = r.file_id and n.record = r.record and n.test_num = r.test_num
+    left join test_blocks as tb
+        on tb.file_id = r.file_id and tb.record = r.record and tb.test_num = r.test_num
     left join sections as s on s.file_id = r.file_id and s.section_id = r.section_id
-    left join tsr as t on t.file_id = r.file_id and t.test_num = r.test_num
 )
 
 select * from final

@@ -14,6 +14,7 @@
 #define PY_SSIZE_T_CLEAN
 #include <Python.h>
 #include <stdint.h>
+#include <stdlib.h>
 #include <string.h>
 
 static PyObject *scan(PyObject *self, PyObject *args) {
@@ -74,42 +75,60 @@ enum { K_FIXED = 1, K_CN = 3, K_BN = 4, K_DN = 5, K_ARR = 6, K_NIB = 7 };
 #define MAXF 64
 
 typedef struct {
-    uint8_t *valid;
-    uint8_t *a;      /* values, or offsets */
-    uint8_t *b;      /* data (var and array kinds) */
-    int64_t total;   /* bytes (var) or items (array) */
+    uint8_t *valid;  /* n bytes */
+    uint8_t *vals;   /* fixed: n * size bytes */
+    int64_t *offs;   /* var / array: n + 1 offsets */
+    uint8_t *data;   /* var / array: grown as needed (malloc) */
+    int64_t cap, len;
 } col_t;
 
-static uint64_t rd(const uint8_t *p, int size, int big) {
+static inline uint64_t rd(const uint8_t *p, int size, int big) {
     uint64_t v = 0;
-    for (int i = 0; i < size; i++) {
-        int k = big ? i : size - 1 - i;
-        v = (v << 8) | p[k];
-    }
+    for (int i = 0; i < size; i++) v = (v << 8) | p[big ? i : size - 1 - i];
     return v;
 }
 
-static void put(uint8_t *dst, const uint8_t *src, int size, int big) {
+static inline void put(uint8_t *dst, const uint8_t *src, int size, int big) {
     /* values are stored native (little-endian on every machine we build for) */
-    if (!big) { memcpy(dst, src, (size_t)size); return; }
+    if (!big) {
+        switch (size) {
+        case 1: *dst = *src; return;
+        case 2: memcpy(dst, src, 2); return;
+        case 4: memcpy(dst, src, 4); return;
+        case 8: memcpy(dst, src, 8); return;
+        default: memcpy(dst, src, (size_t)size); return;
+        }
+    }
     for (int i = 0; i < size; i++) dst[i] = src[size - 1 - i];
 }
 
-/* One pass over one record. With `cols` NULL it only counts var bytes / array items. */
-static void walk(const uint8_t *b, int64_t pos, int64_t end, const uint8_t *layout, int nf,
-                 int big, int64_t r, col_t *cols, int64_t *totals, int64_t *cursor) {
+static int reserve(col_t *c, int64_t more) {
+    if (c->len + more <= c->cap) return 0;
+    int64_t cap = c->cap ? c->cap : 4096;
+    while (cap < c->len + more) cap *= 2;
+    uint8_t *d = (uint8_t *)realloc(c->data, (size_t)cap);
+    if (!d) return -1;
+    c->data = d;
+    c->cap = cap;
+    return 0;
+}
+
+/* One record, one pass. Returns -1 when memory runs out. */
+static int walk(const uint8_t *b, int64_t pos, int64_t end, const uint8_t *layout, int nf,
+                const uint8_t *is_count, int big, int64_t r, col_t *cols) {
     int64_t counts[MAXF];
     int alive = 1;
     for (int f = 0; f < nf; f++) {
         int kind = layout[3 * f], size = layout[3 * f + 1], ci = layout[3 * f + 2];
+        col_t *c = &cols[f];
+        int64_t need = 0, items = 0, skip;
         counts[f] = 0;
-        int64_t need = 0, items = 0, skip = 0;
         if (!alive) goto absent;
         switch (kind) {
         case K_FIXED:
             if (pos + size > end) goto absent;
-            counts[f] = (int64_t)rd(b + pos, size, big);
-            if (cols) put(cols[f].a + r * size, b + pos, size, big);
+            if (is_count[f]) counts[f] = (int64_t)rd(b + pos, size, big);
+            put(c->vals + r * size, b + pos, size, big);
             pos += size;
             break;
         case K_CN: case K_BN: case K_DN:
@@ -117,42 +136,39 @@ static void walk(const uint8_t *b, int64_t pos, int64_t end, const uint8_t *layo
             if (pos + skip > end) goto absent;
             need = kind == K_DN ? ((int64_t)rd(b + pos, 2, big) + 7) / 8 : b[pos];
             if (pos + skip + need > end) goto absent;
-            if (cols) memcpy(cols[f].b + cursor[f], b + pos + skip, (size_t)need);
-            if (cursor) cursor[f] += need;
-            totals[f] += cols ? 0 : need;
+            if (reserve(c, need)) return -1;
+            memcpy(c->data + c->len, b + pos + skip, (size_t)need);
+            c->len += need;
             pos += skip + need;
             break;
         case K_ARR: case K_NIB:
             items = ci < nf ? counts[ci] : 0;
             need = kind == K_NIB ? (items + 1) / 2 : items * size;
             if (pos + need > end) goto absent;
-            if (cols) {
-                for (int64_t i = 0; i < items; i++) {
-                    uint8_t *dst = cols[f].b + (cursor[f] + i) * (kind == K_NIB ? 1 : size);
-                    if (kind == K_NIB) *dst = (b[pos + i / 2] >> (4 * (i % 2))) & 0x0F;
-                    else put(dst, b + pos + i * size, size, big);
-                }
+            if (reserve(c, kind == K_NIB ? items : need)) return -1;
+            for (int64_t i = 0; i < items; i++) {
+                if (kind == K_NIB)
+                    c->data[c->len + i] = (b[pos + i / 2] >> (4 * (i % 2))) & 0x0F;
+                else
+                    put(c->data + c->len + i * size, b + pos + i * size, size, big);
             }
-            if (cursor) cursor[f] += items;
-            totals[f] += cols ? 0 : items;
+            c->len += kind == K_NIB ? items : need;
             pos += need;
             break;
         default:
             goto absent;
         }
-        if (cols) {
-            cols[f].valid[r] = 1;
-            if (kind != K_FIXED) ((int64_t *)cols[f].a)[r + 1] = cursor[f];
-        }
+        c->valid[r] = 1;
+        if (kind != K_FIXED) c->offs[r + 1] = kind >= K_ARR ? c->len / (kind == K_NIB ? 1 : size)
+                                                            : c->len;
         continue;
     absent:
         alive = 0;
-        if (cols) {
-            cols[f].valid[r] = 0;
-            if (kind == K_FIXED) memset(cols[f].a + r * size, 0, (size_t)size);
-            else ((int64_t *)cols[f].a)[r + 1] = cursor[f];
-        }
+        c->valid[r] = 0;
+        if (kind == K_FIXED) memset(c->vals + r * size, 0, (size_t)size);
+        else c->offs[r + 1] = kind >= K_ARR ? c->len / (kind == K_NIB ? 1 : size) : c->len;
     }
+    return 0;
 }
 
 static PyObject *decode(PyObject *self, PyObject *args) {
@@ -164,40 +180,48 @@ static PyObject *decode(PyObject *self, PyObject *args) {
     const int64_t *o = (const int64_t *)offs.buf, *l = (const int64_t *)lens.buf;
     const uint8_t *layout = (const uint8_t *)lay.buf;
     int64_t n = offs.len / 8;
-    int nf = (int)(lay.len / 3);
-    int64_t totals[MAXF] = {0}, cursor[MAXF] = {0};
+    int nf = (int)(lay.len / 3), failed = 0;
     col_t cols[MAXF];
+    uint8_t is_count[MAXF] = {0};
+    memset(cols, 0, sizeof(cols));
     if (nf > MAXF || lens.len != offs.len) {
         PyErr_SetString(PyExc_ValueError, "bad layout or offsets");
         goto done;
     }
+    for (int f = 0; f < nf; f++)
+        if (layout[3 * f + 2] < nf) is_count[layout[3 * f + 2]] = 1;
     for (int64_t r = 0; r < n; r++) {
         if (o[r] < 0 || o[r] + l[r] > buf.len) {
             PyErr_SetString(PyExc_ValueError, "record runs past the buffer");
             goto done;
         }
-        walk(b, o[r], o[r] + l[r], layout, nf, big, r, NULL, totals, NULL);
     }
     for (int f = 0; f < nf; f++) {
         int kind = layout[3 * f], size = layout[3 * f + 1];
         objs[f][0] = PyBytes_FromStringAndSize(NULL, n);
-        if (kind == K_FIXED) {
-            objs[f][1] = PyBytes_FromStringAndSize(NULL, n * size);
-        } else {
-            int64_t item = (kind == K_ARR) ? size : 1;
-            objs[f][1] = PyBytes_FromStringAndSize(NULL, (n + 1) * 8);
-            objs[f][2] = PyBytes_FromStringAndSize(NULL, totals[f] * item);
-        }
-        if (!objs[f][0] || !objs[f][1] || (kind != K_FIXED && !objs[f][2])) goto done;
+        objs[f][1] = PyBytes_FromStringAndSize(NULL, kind == K_FIXED ? n * size : (n + 1) * 8);
+        if (!objs[f][0] || !objs[f][1]) goto done;
         cols[f].valid = (uint8_t *)PyBytes_AS_STRING(objs[f][0]);
-        cols[f].a = (uint8_t *)PyBytes_AS_STRING(objs[f][1]);
-        cols[f].b = kind == K_FIXED ? NULL : (uint8_t *)PyBytes_AS_STRING(objs[f][2]);
-        if (kind != K_FIXED) ((int64_t *)cols[f].a)[0] = 0;
+        if (kind == K_FIXED) {
+            cols[f].vals = (uint8_t *)PyBytes_AS_STRING(objs[f][1]);
+        } else {
+            cols[f].offs = (int64_t *)PyBytes_AS_STRING(objs[f][1]);
+            cols[f].offs[0] = 0;
+        }
     }
     Py_BEGIN_ALLOW_THREADS
-    for (int64_t r = 0; r < n; r++)
-        walk(b, o[r], o[r] + l[r], layout, nf, big, r, cols, totals, cursor);
+    for (int64_t r = 0; r < n && !failed; r++)
+        failed = walk(b, o[r], o[r] + l[r], layout, nf, is_count, big, r, cols);
     Py_END_ALLOW_THREADS
+    if (failed) {
+        PyErr_NoMemory();
+        goto done;
+    }
+    for (int f = 0; f < nf; f++) {
+        if (layout[3 * f] == K_FIXED) continue;
+        objs[f][2] = PyBytes_FromStringAndSize((const char *)cols[f].data, cols[f].len);
+        if (!objs[f][2]) goto done;
+    }
     result = PyList_New(nf);
     if (!result) goto done;
     for (int f = 0; f < nf; f++) {
@@ -207,8 +231,10 @@ static PyObject *decode(PyObject *self, PyObject *args) {
         PyList_SET_ITEM(result, f, t);
     }
 done:
-    for (int f = 0; f < MAXF; f++)
+    for (int f = 0; f < MAXF; f++) {
+        free(cols[f].data);
         for (int k = 0; k < 3; k++) Py_XDECREF(objs[f][k]);
+    }
     PyBuffer_Release(&buf); PyBuffer_Release(&offs); PyBuffer_Release(&lens);
     PyBuffer_Release(&lay);
     return result;

@@ -93,7 +93,9 @@ class Decoder:
         if self._stopped:
             return []
         self._buf += data
-        if len(self._buf) < self.limits.batch_bytes:
+        # At least the 6-byte FAR: the byte order is read from it, so a smaller batch
+        # must wait for more data rather than call the stream too short.
+        if len(self._buf) < max(self.limits.batch_bytes, 6):
             return []
         return self._process()
 
@@ -155,6 +157,7 @@ class Decoder:
         tl = self._timeline_start(first_rec)
         prr_ctx = self._walk_structure(buf, data_offs, lens, structural, first_rec, tl)
         out: list[tuple[str, pa.Table]] = []
+        decoded: set[str] = set()
         for key, idx in groups.items():
             rec = _KEY_TO_REC.get(key)
             if rec is None:
@@ -168,9 +171,15 @@ class Decoder:
             table = self._with_context(rec, cols, recs, tl, prr_ctx)
             if rec.name in RESULT_RECORDS:
                 table = self._fill_defaults(rec, table)
+                decoded.add(rec.name)
                 out.extend(self._release(rec.name, table))
             else:
                 out.append((_table_name(rec), table))
+        # Results held from earlier batches whose PRR came in this one, which has no
+        # record of their type: release them now, not never.
+        for name in RESULT_RECORDS:
+            if self._held[name] and name not in decoded:
+                out.extend(self._release(name, None))
         return out
 
     # -- structure ------------------------------------------------------------------
@@ -334,7 +343,9 @@ class Decoder:
             if c in invalid:
                 use_default |= invalid[c]
             val = col
-            if use_default.any():
+            # Text always goes through _choose, defaults used or not, so that every batch
+            # has the same (dictionary) type and held batches concatenate.
+            if use_default.any() or pa.types.is_large_string(col.type):
                 val = _choose(use_default, table.column(c).combine_chunks(), pos, col)
             bit = _NO_LIMIT_BITS.get(c)
             if bit is not None:
@@ -345,10 +356,11 @@ class Decoder:
                 t = t.set_column(t.schema.get_field_index(c), c, val)
         return t
 
-    def _release(self, name: str, table: pa.Table) -> list[tuple[str, pa.Table]]:
-        held = self._held[name]
-        if held:
-            table = pa.concat_tables([*held, table], promote_options="default")
+    def _release(self, name: str, table: pa.Table | None) -> list[tuple[str, pa.Table]]:
+        tables = [*self._held[name], *([] if table is None else [table])]
+        table = tables[0]
+        if len(tables) > 1:
+            table = pa.concat_tables(tables, promote_options="default")
         index = np.array(self._s.part_index + [-1], dtype=np.int64)  # [-1] for key -1
         pk = table.column("part_key").to_numpy()
         pi = index[np.where(pk < 0, len(index) - 1, pk)]
