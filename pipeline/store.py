@@ -18,6 +18,7 @@ view shows; the next writer removes them. Readers never take the lock.
 from __future__ import annotations
 
 import fcntl
+import functools
 import os
 import queue
 import shutil
@@ -290,9 +291,15 @@ class Store:
         return self._known.get(sha256)
 
     def connect(self, raw_only: bool = False) -> duckdb.DuckDBPyConnection:
-        """An in-memory DuckDB with every view over this store (no lock, no file)."""
+        """A DuckDB connection with every view over this store. catalog.duckdb, opened
+        read-only, when it holds this release's views (creating the views costs seconds:
+        DuckDB binds each one); else an in-memory DuckDB built from sql/. Never locks."""
         import duckdb
 
+        if not raw_only:
+            con = self._open_catalog()
+            if con is not None:
+                return con
         con = duckdb.connect(":memory:")
         con.execute(f"set file_search_path = '{_sql_str(str(self.path))}'")
         for stmt in (raw_statements("files") if raw_only else catalog_statements()):
@@ -312,27 +319,48 @@ class Store:
         except Exception as e:  # a reader may hold it open; the views are unchanged
             self.catalog_warning = f"catalog.duckdb not rewritten: {' '.join(str(e).split())}"
 
-    def write_catalog(self) -> None:
-        """(Re)write catalog.duckdb for engineers' own DuckDB sessions. Skipped with no
-        error when someone has it open: the views only change with a new release."""
+    def _open_catalog(self) -> duckdb.DuckDBPyConnection | None:
+        import duckdb
+
         target = self.path / "catalog.duckdb"
-        stamp = self.path / ".catalog-version"
-        want = CATALOG_VERSION + ":" + _sql_fingerprint()
-        if target.exists() and stamp.exists() and stamp.read_text() == want:
+        if not target.exists():
+            return None
+        try:
+            con = duckdb.connect(str(target), read_only=True)
+        except duckdb.Error:
+            return None
+        try:
+            got = con.execute("select version from tandem_catalog").fetchone()
+            if got is not None and got[0] == catalog_version():
+                con.execute(f"set file_search_path = '{_sql_str(str(self.path))}'")
+                return con
+        except duckdb.Error:
+            pass
+        con.close()
+        return None
+
+    def write_catalog(self) -> None:
+        """(Re)write catalog.duckdb when it does not hold this release's views. Written
+        aside and renamed into place, so a reader that has the old one open keeps it."""
+        target = self.path / "catalog.duckdb"
+        probe = self._open_catalog()
+        if probe is not None:
+            probe.close()
             return
         import duckdb
 
-        tmp = self.path / "catalog.duckdb.tmp"
+        tmp = self.path / f"catalog.duckdb.{os.getpid()}.tmp"
         tmp.unlink(missing_ok=True)
         con = duckdb.connect(str(tmp))
         try:
             con.execute(f"set file_search_path = '{_sql_str(str(self.path))}'")
             for stmt in catalog_statements():
                 con.execute(stmt)
+            con.execute("create or replace view tandem_catalog as select "
+                        f"'{catalog_version()}' as version")
         finally:
             con.close()
         os.replace(tmp, target)
-        stamp.write_text(want)
 
 
 def to_frame(result: duckdb.DuckDBPyRelation | None) -> pl.DataFrame:
@@ -368,6 +396,11 @@ def _sql_files() -> list[Path]:
     return sorted(SQL_DIR.glob("*.sql"))
 
 
+def catalog_version() -> str:
+    return CATALOG_VERSION + ":" + _sql_fingerprint()
+
+
+@functools.cache
 def _sql_fingerprint() -> str:
     import hashlib
 

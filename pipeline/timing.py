@@ -85,11 +85,15 @@ def _estimate_lot(store: Store, lot: str, file_ids: str, solve: Any) -> pa.Table
             rows.append({"lot_id": lot, "block": name, "site": site,
                          "parts": int(X[mask][:, blocks.index(name)].sum()) if name in blocks
                          else int(mask.sum()),
-                         "mean_ms": r.value_ms, "ci_low_ms": r.ci_low_ms,
-                         "ci_high_ms": r.ci_high_ms, "identifiable": r.identifiable,
+                         "mean_ms": r.value_ms, "ci_low_ms": _finite(r.ci_low_ms),
+                         "ci_high_ms": _finite(r.ci_high_ms), "identifiable": r.identifiable,
                          "warning": est.warning, "file_ids": file_ids,
                          "computed_at": _dt.datetime.now().replace(microsecond=0)})
     return pa.Table.from_pylist(rows)
+
+
+def _finite(v: float) -> float | None:
+    return None if v is None or not np.isfinite(v) else float(v)
 
 
 # -- the attribution table ---------------------------------------------------------------

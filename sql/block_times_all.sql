@@ -5,8 +5,9 @@
 --   tsr      TSR TEST_TIM x EXEC_CNT per block / parts        -> tsr_times (means only)
 --   estimate NNLS on PRR.TEST_T against the blocks each part ran (tandem times writes it,
 --            with bootstrap confidence intervals and identifiability)
--- share_pct: mean_ms over the mean part time (PRR.TEST_T, or the CSV's test_time_ms) of
--- the same lot and site. method_rank orders the sources best first; block_times keeps
+-- share_pct: the block's total time over the total part time (PRR.TEST_T, or the CSV's
+-- test_time_ms) of the same lot and site: its share of tester time, also when it ran on
+-- only some parts (stop-on-fail). method_rank orders the sources best first; block_times keeps
 -- the best one per lot.
 with
 
@@ -24,7 +25,7 @@ estimates as (
 ),
 
 part_time as (
-    select lot_id, site, avg(test_time_ms) as part_ms from parts
+    select lot_id, site, sum(test_time_ms) as part_total_ms from parts
     group by grouping sets ((lot_id, site), (lot_id))
 ),
 
@@ -81,7 +82,7 @@ final as (
         u.method,
         case u.method when 'marker' then 1 when 'csv' then 2 when 'tsr' then 3 else 4 end
             as method_rank,
-        100.0 * u.mean_ms / nullif(pt.part_ms, 0) as share_pct,
+        100.0 * u.total_ms / nullif(pt.part_total_ms, 0) as share_pct,
         u.ci_low_ms,
         u.ci_high_ms,
         u.identifiable,

@@ -1,7 +1,9 @@
--- reconciliation: per (lot_id, site), the part time the log records (PRR.TEST_T, or the
--- timing CSV's test_time_ms) against the time attributed to blocks by the lot's best
--- timing source (block_times). unattributed_ms is what no block accounts for: per-part
--- overhead, waits for shared instruments, handler handshakes. site null = pooled.
+-- reconciliation: per (lot_id, site), the mean part time the log records (PRR.TEST_T, or
+-- the timing CSV's test_time_ms) against the mean time per part attributed to blocks by
+-- the lot's best timing source (block_times: each block's total over all parts, so blocks
+-- that only some parts ran count as often as they ran). unattributed_ms is what no block
+-- accounts for: per-part overhead, waits for shared instruments, handler handshakes; for
+-- the estimate source it is the fitted per-part overhead. site null = pooled.
 -- Key: (lot_id, site).
 with
 
@@ -13,14 +15,16 @@ parts as (
 ),
 
 attributed as (
-    select lot_id, site, any_value(method) as method, sum(mean_ms) as attributed_ms
-    from block_times
-    group by lot_id, site
+    select b.lot_id, b.site, any_value(b.method) as method,
+           sum(b.total_ms) / any_value(p.parts) as attributed_ms
+    from block_times as b
+    join parts as p on p.lot_id = b.lot_id and p.site is not distinct from b.site
+    where b.block <> 'overhead'
+    group by b.lot_id, b.site
 ),
 
 pooled_only as (
-    select lot_id, any_value(method) as method, sum(mean_ms) as attributed_ms
-    from block_times where site is null group by lot_id
+    select lot_id, method, attributed_ms from attributed where site is null
 ),
 
 final as (

@@ -96,8 +96,8 @@ test_blocks as (
             as fallback_block
     from tests
     left join rules
-        on (rules.kind = 'range' and tests.test_num between rules.lo and rules.hi)
-        or (rules.kind = 'pattern' and tests.test_name glob rules.pattern)
+        on (rules.kind = 'tests' and tests.test_num between rules.lo and rules.hi)
+        or (rules.kind = 'names' and tests.test_name glob rules.pattern)
     group by tests.file_id, tests.record, tests.test_num, tests.test_name
 ),
 
