@@ -194,18 +194,18 @@ class BlockMap:
         return [rule for b in self.blocks.values() for rule in _block_rules(b)]
 
     @cached_property
-    def _matchers(self) -> list[tuple[Rule, re.Pattern[str] | None]]:
-        return [(r, None if r.pattern is None else re.compile(fnmatch.translate(r.pattern)))
-                for r in self.rules()]
+    def _patterns(self) -> dict[str, tuple[re.Pattern[str], ...]]:
+        return {n: tuple(re.compile(fnmatch.translate(p)) for p in b.names)
+                for n, b in self.blocks.items()}
 
     def assign(self, test_num: int | None, test_name: str | None) -> str | None:
-        """The block of the first rule that matches, or None (attribution: unassigned)."""
-        for rule, regex in self._matchers:
-            if regex is None:
-                if test_num is not None and rule.lo <= test_num <= rule.hi:  # type: ignore
-                    return rule.block
-            elif test_name is not None and regex.match(test_name):
-                return rule.block
+        """The block of the first rule that matches, or None (attribution: unassigned).
+        Same order as ``rules()``: blocks in file order, each one's ranges first."""
+        for name, b in self.blocks.items():
+            if test_num is not None and any(lo <= test_num <= hi for lo, hi in b.tests):
+                return name
+            if test_name is not None and any(p.match(test_name) for p in self._patterns[name]):
+                return name
         return None
 
     def topological_order(self) -> list[str]:
@@ -286,7 +286,8 @@ class _Table:
         self.src, self.label, self.data, self.prefix = src, label, data, prefix
         for key in data:
             if key not in known:
-                hint = _did_you_mean(key, known) or f"known keys: {', '.join(known)}"
+                what = "keys" if label else "tables"
+                hint = _did_you_mean(key, known) or f"known {what}: {', '.join(known)}"
                 if not label and isinstance(data[key], dict):
                     raise ConfigError(f"{src}: [{key}]: unknown table ({hint})")
                 self.fail(key, "unknown key", hint)
@@ -306,7 +307,7 @@ class _Table:
         if key in self.data:
             return self.data[key]
         if required:
-            self.fail(None, f"missing key {key!r}", f"e.g. {key} = {example}")
+            self.fail(None, f"missing key {self.prefix + key!r}", f"e.g. {key} = {example}")
         return _MISSING
 
     def number(self, key: str, default: Any = _MISSING, *, required: bool = False,
@@ -380,7 +381,7 @@ class _Table:
         out = []
         for name, v in self.table(key).items():
             if not isinstance(v, dict):
-                _Table(self.src, key, self.table(key), [name]).fail(
+                _Table(self.src, key, {name: v}, [name]).fail(
                     name, f"expected a table, found {_type_name(v)}",
                     f"write [{key}.{_key(name)}]")
             if not name:
@@ -401,7 +402,7 @@ def _build(data: dict[str, Any], src: str) -> BlockMap:
     eco = top.table("economics") if "economics" in data else None
     economics = None if eco is None else _economics(_Table(src, "economics", eco,
                                                            _ECONOMICS_KEYS))
-    parsed = [_whatif(src, name, t, blocks, tables, limits) for name, t in top.subtables("whatif")]
+    parsed = [_whatif(src, name, t, blocks, limits) for name, t in top.subtables("whatif")]
     resources = dict(declared)
     uses = [u for b in blocks.values() for u in b.uses]
     uses += [u for w, _ in parsed if isinstance(w, Alternative) for o in w.options
@@ -438,11 +439,12 @@ def _block(t: _Table, name: str, limits: Limits) -> Block:
                  _ranges(t), t.names("names"))
 
 
-def _check_power(t: _Table, key: str, power: float | None, limits: Limits,
-                 what: str = "") -> None:
-    if power is not None and limits.power_w is not None and power > limits.power_w:
+def _check_power(t: _Table, key: str, power: float | None, limits: Limits, what: str = "",
+                 hint: str = "lower it, or raise [limits] power_w") -> None:
+    # A tolerance: a sum such as 0.1 + 0.2 must fit a limit of 0.3.
+    if power is not None and limits.power_w is not None and power > limits.power_w + 1e-9:
         t.fail(key, f"{what}too big for the power limit of {limits.power_w!r} W per site",
-               "lower it, or raise [limits] power_w")
+               hint)
 
 
 def _ranges(t: _Table) -> tuple[tuple[int, int], ...]:
@@ -531,11 +533,11 @@ def _economics(t: _Table) -> Economics:
 
 
 def _whatif(src: str, name: str, data: dict[str, Any], blocks: dict[str, Block],
-            tables: dict[str, _Table], limits: Limits) -> tuple[WhatIf, _Table]:
+            limits: Limits) -> tuple[WhatIf, _Table]:
     label = f"whatif.{_key(name)}"
     kinds = list(_WHATIF_KEYS)
     kind = data.get("kind", _MISSING)
-    if kind not in _WHATIF_KEYS:
+    if not isinstance(kind, str) or kind not in _WHATIF_KEYS:
         head = _Table(src, label, {"kind": kind} if kind is not _MISSING else {}, ["kind"])
         if kind is _MISSING:
             head.fail(None, "missing key 'kind'", f"one of: {', '.join(kinds)}")
@@ -548,7 +550,7 @@ def _whatif(src: str, name: str, data: dict[str, Any], blocks: dict[str, Block],
                _did_you_mean(change, CHANGES))
     common = {"name": name, "change": change, "note": t.string("note", "")}
     if kind == "broadcast":
-        return _broadcast(t, common, blocks, tables, limits), t
+        return _broadcast(t, common, blocks, limits), t
     if kind == "alternative":
         return _alternative(t, common, blocks, limits), t
     return ExtraInstrument(resource=t.string("resource", required=True),
@@ -562,7 +564,7 @@ def _known_block(t: _Table, key: str, name: str, blocks: Mapping[str, Block]) ->
 
 
 def _broadcast(t: _Table, common: dict[str, Any], blocks: dict[str, Block],
-               tables: dict[str, _Table], limits: Limits) -> Broadcast:
+               limits: Limits) -> Broadcast:
     members = t.names("blocks", required=True)
     if len(members) < 2:
         t.fail("blocks", "a broadcast merges at least two blocks")
@@ -576,8 +578,12 @@ def _broadcast(t: _Table, common: dict[str, Any], blocks: dict[str, Block],
                        "cannot be merged")
     w = Broadcast(blocks=members, overhead_ms=t.number("overhead_ms", required=True),
                   power_w=t.number("power_w", None), **common)
-    _check_power(t, "power_w" if w.power_w is not None else "blocks", w.merged_power_w(blocks),
-                 limits, f"the merged block draws {w.merged_power_w(blocks)!r} W: ")
+    if w.power_w is None:
+        _check_power(t, "blocks", w.merged_power_w(blocks), limits,
+                     f"the merged block draws {round(w.merged_power_w(blocks), 6)!r} W "
+                     "(the members' sum), ",
+                     "broadcast fewer blocks, or set power_w if they do not all switch at once")
+    _check_power(t, "power_w", w.power_w, limits)
     merged = "+".join(members)
     rep = {n: merged if n in members else n for n in blocks}
     graph: dict[str, list[str]] = {}
@@ -710,6 +716,8 @@ def draft_block_map(blocks: list[tuple[str, float]],
     dupes = sorted({n for n in names if names.count(n) > 1})
     if dupes:
         raise ValueError(f"blocks listed more than once: {', '.join(dupes)}")
+    if "" in names or any("" in held for held in (uses or {}).values()):
+        raise ValueError("an empty block or resource name")
     inferred = dict.fromkeys(u for n in names for u in (uses or {}).get(n, ()))
     out = ["# Draft block map, written by tandem from measured block times (program order).",
            "# Every block runs after the one before it, as measured: loosen `after` where the",
@@ -725,11 +733,11 @@ def draft_block_map(blocks: list[tuple[str, float]],
         if name == UNASSIGNED:
             out += ["", f"# {UNASSIGNED}: {_ms(mean_ms)} in tests that no block claims"]
             continue
-        known = uses is not None and name in uses
-        held = f"uses = {_value(list(uses[name]))}" if known and uses else "uses = []"
+        held = None if uses is None else uses.get(name)
         out += ["", f"[block.{_key(name)}]     # measured: {_ms(mean_ms)} mean",
-                held + ("     # inferred from pins" if known else
-                        "     # TODO: instruments and pins it holds (not inferred)"),
+                "uses = []     # TODO: instruments and pins it holds (not inferred)"
+                if held is None else
+                f"uses = {_value(list(dict.fromkeys(held)))}     # inferred from pins",
                 "power_w = 0.0  # TODO: set from the device's power budget",
                 f"after = {_value([prev] if prev else [])}", "pinned = false"]
         prev = name

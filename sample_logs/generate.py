@@ -164,6 +164,7 @@ BLOCK_SPECS: tuple[BlockSpec, ...] = (
     ), power_w=0.8),
 )
 POWER_LIMIT_W, PARALLEL_LIMIT = 3.0, 3  # per site; four scans together (5.6 W) exceed it
+UNITS_PER_YEAR, TESTER_COST_PER_HOUR = 2_000_000, 60.0  # the block map's [economics]
 
 
 @dataclass(frozen=True)
@@ -693,11 +694,11 @@ def blocks_toml(blocks: list[Block]) -> str:
         "count = 1",
         "shared = false       # one scan port per site: the cores' scan blocks cannot overlap",
         "",
-        "# What-if for later (design change): broadcast one scan input to the four identical",
-        "# cores, so scan_core0..3 share one port and can run together (power permitting).",
-        "# [whatif.scan_broadcast]",
-        '# blocks = ["scan_core0", "scan_core1", "scan_core2", "scan_core3"]',
-        '# change = "design"',
+        "# Assignment rules, for logs without sections: a [block.<name>] may also list",
+        "#   tests = [[1000, 1999], 1042]   # inclusive test-number ranges (a number: itself)",
+        '#   names = ["cont_*", "leak_i?_*"] # glob patterns on test names (case-sensitive)',
+        "# The first rule that matches wins, in file order (each block's ranges first). Every",
+        "# log here names its blocks (sections, TSR SEQ_NAME or the timing CSV): none needed.",
     ]
     for b in blocks:
         first = b.index == 0
@@ -705,7 +706,49 @@ def blocks_toml(blocks: list[Block]) -> str:
         lines += ["", f"[block.{b.name}]", f"uses = [{uses}]", f"power_w = {b.spec.power_w}",
                   "after = []" if first else 'after = ["contact"]',
                   f"pinned = {'true' if first else 'false'}"]
-    return "\n".join(lines) + "\n"
+    return "\n".join(lines + economics_and_whatifs()) + "\n"
+
+
+def economics_and_whatifs() -> list[str]:
+    """The block map's [economics] and [whatif.*] tables (our extensions of the contract)."""
+    core_w = next(s.power_w for s in BLOCK_SPECS if s.name == "scan_core0")
+    return [
+        "",
+        "[economics]",
+        f"units_per_year = {UNITS_PER_YEAR}",
+        f"tester_cost_per_hour = {TESTER_COST_PER_HOUR}   # currency-neutral: any unit per hour",
+        '# currency = "credits"     # optional label for the report',
+        f"# index_ms = {INDEX_MS}        # optional: overrides the index time the lots measure",
+        "",
+        "# What-ifs: design changes the planner evaluates, one at a time.",
+        "",
+        "# Broadcast one scan input to identical cores: the set becomes one block taking the",
+        "# longest member's time plus overhead_ms. Its power defaults to the members' sum (every",
+        f"# core still switches), so all four cores ({4 * core_w:.1f} W) would be too big for the",
+        f"# {POWER_LIMIT_W:.1f} W power limit: this broadcasts a pair ({2 * core_w:.1f} W).",
+        "[whatif.scan_broadcast_pair]",
+        'kind = "broadcast"',
+        'blocks = ["scan_core0", "scan_core1"]',
+        "overhead_ms = 6.0",
+        'note = "one scan input shared by cores 0 and 1"',
+        "",
+        "# Two ways to test the flash; the planner picks the better. An option's time_ms, power_w",
+        "# and uses default to the block as measured. pattern_gen is declared nowhere: per site,",
+        "# count 1.",
+        "[whatif.flash_method]",
+        'kind = "alternative"',
+        'block = "flash_bist"',
+        "options = [",
+        '    { name = "on_chip_bist" },',
+        '    { name = "tester_patterns", time_ms = 32.0, power_w = 0.7, uses = ["pattern_gen"] },',
+        "]",
+        "",
+        "# One more instrument: a second RF meter, so two sites can measure radio at once.",
+        "[whatif.second_rf_meter]",
+        'kind = "extra_instrument"',
+        'resource = "rf_meter"',
+        "add = 1",
+    ]
 
 
 # ------------------------------------------------------------------ ground truth
