@@ -45,6 +45,12 @@ _EPS = float(np.finfo(np.float64).eps)
 _NULL_WEIGHT_TOL = 1e-9
 
 
+# Relative eigenvalue of the weighted Gram matrix below which a bootstrap refit takes the
+# direction as unidentified: a singular value ratio of 1e-5, far above the ~1e-15
+# rounding of the eigenvalues and far below the conditioning of any real block design.
+_GRAM_RANK_TOL = 1e-10
+
+
 # ---------------------------------------------------------------------------- NNLS
 
 
@@ -158,11 +164,14 @@ def identifiability(X: ArrayLike, names: list[str]) -> list[list[str]]:
     ``[a, b, c]``); a block no part ran is a group of its own. Empty for a full-rank design.
     """
     A, labels = _design(X, names)
-    return [[labels[j] for j in g.members] for g in _find_groups(A)]
+    return [[labels[j] for j in g.members] for g in _find_groups(_row_patterns(A)[0])]
 
 
 def _find_groups(A: Array) -> list[_Group]:
-    """The identifiability groups of the design matrix ``A`` (column 0 the intercept)."""
+    """The identifiability groups of the design ``A`` (column 0 the intercept).
+
+    Only the distinct rows matter (they span the same row space), so callers pass those.
+    """
     absent = [j for j in range(A.shape[1]) if not A[:, j].any()]
     classes = _identical_classes(A, skip=set(absent))
     dependent = _dependent_components(A[:, [c[0] for c in classes]])
@@ -210,7 +219,7 @@ def _dependent_components(R: Array) -> list[list[int]]:
 
 
 def _components(linked: NDArray[np.bool_]) -> list[list[int]]:
-    """Connected components (of size > 0 weight on the diagonal) of a symmetric pattern."""
+    """Connected components of a symmetric pattern, over indices with a non-zero diagonal."""
     seen: set[int] = set()
     out: list[list[int]] = []
     for start in range(linked.shape[0]):
@@ -254,7 +263,9 @@ class Estimate:
 
     blocks: dict[str, BlockEstimate]  # "overhead" first, then the blocks in column order
     groups: list[list[str]]  # from identifiability()
-    group_totals: dict[str, float]  # " + ".join(group) -> ms (see _group_statistic)
+    # " + ".join(group) -> ms: identical columns, the sum of their times per run; other
+    # dependencies, their time per part that ran any member. Not for blocks never run.
+    group_totals: dict[str, float]
     group_ci_ms: dict[str, tuple[float, float]]  # same keys: percentile interval
     warning: str | None  # one line naming each group, None when all are identifiable
     n_parts: int
@@ -273,29 +284,28 @@ def estimate_block_times(X: ArrayLike, y: ArrayLike, names: list[str], n_boot: i
     ``X[p, b]`` is how many times part ``p`` ran block ``names[b]``; ``y[p]`` is the part's
     total test time in ms. Identical columns are merged into one before fitting (their sum
     is what the data determine), so the fit and every bootstrap resample solve the same
-    small problem. InputError for a design or times that cannot be used.
+    small problem. Resample ``i`` takes the parts ``rng.integers(0, n, n)``, with ``rng =
+    np.random.default_rng(seed)`` drawn from in order; the interval is Efron's percentile
+    interval of the refits. InputError for a design or times that cannot be used,
+    ConfigError for ``n_boot`` or ``ci`` out of range.
+
+    In a pure staircase every part runs the first block, so its time merges with the
+    overhead; parts that fail before any block (contact) are what separate the two.
     """
     A, labels = _design(X, names)
     totals = _part_times(y, A.shape[0])
     _check_options(n_boot, ci, A.shape)
-    groups = _find_groups(A)
-    model = _Reduced.build(A, groups)
-    coef = _fit(model.R, totals)
-    point = model.statistics(coef, model.R)
-    boot = _bootstrap(model, totals, n_boot, seed)
-    lo, hi = _percentiles(boot, ci, point.size)
-    values = model.expand(coef)
-    fixed = {j for g in groups for j in g.members}
-    blocks = {}
-    for j, label in enumerate(labels):
-        ok = j not in fixed
-        s = model.column_stat[j]
-        blocks[label] = BlockEstimate(label, float(values[j]), float(lo[s]) if ok else np.nan,
-                                      float(hi[s]) if ok else np.nan, ok)
+    patterns, of_part = _row_patterns(A)
+    groups = _find_groups(patterns)
+    model = _Model.build(patterns, of_part, groups)
+    weight = _sum_by(of_part, np.ones_like(totals), len(patterns))
+    coef = model.fit(weight, _sum_by(of_part, totals, len(patterns)))
+    point = model.statistics(coef, weight)
+    lo, hi = _percentiles(_bootstrap(model, totals, n_boot, seed), ci, point.size)
+    blocks = _block_estimates(labels, model, groups, model.expand(coef), lo, hi)
     named = [[labels[j] for j in g.members] for g in groups]
-    keyed = {" + ".join(n): model.group_stat[i] for i, n in enumerate(named)
-             if model.group_stat[i] >= 0}
-    residual = totals - model.R @ coef
+    keyed = {" + ".join(n): s for n, s in zip(named, model.group_stat, strict=True) if s >= 0}
+    residual = totals - (model.P @ coef)[of_part]
     return Estimate(
         blocks=blocks, groups=named,
         group_totals={k: float(point[s]) for k, s in keyed.items()},
@@ -305,45 +315,89 @@ def estimate_block_times(X: ArrayLike, y: ArrayLike, names: list[str], n_boot: i
         ci=ci, n_boot=n_boot)
 
 
-@dataclass(frozen=True)
-class _Reduced:
-    """The design with each set of identical columns merged into one column ``R``.
+def _block_estimates(labels: list[str], model: _Model, groups: list[_Group], values: Array,
+                     lo: Array, hi: Array) -> dict[str, BlockEstimate]:
+    """One entry per design column; no interval for a member of a group."""
+    fixed = {j for g in groups for j in g.members}
+    blocks = {}
+    for j, label in enumerate(labels):
+        s, ok = model.column_stat[j], j not in fixed
+        blocks[label] = BlockEstimate(label, float(values[j]), float(lo[s]) if ok else np.nan,
+                                      float(hi[s]) if ok else np.nan, ok)
+    return blocks
 
-    Statistics, in order: one coefficient per column of ``R``, then one total per
+
+@dataclass(frozen=True)
+class _Model:
+    """The least-squares problem on distinct rows, identical columns merged into one.
+
+    Parts that ran the same blocks the same number of times share a row ``pattern``; with
+    ``W`` parts of a pattern (counted with repeats in a resample) and ``S`` the sum of
+    their totals, ``sum_p (y_p - a_p x)^2`` equals ``sum_g W_g (S_g/W_g - a_g x)^2`` plus a
+    constant, so the minimiser, constrained or not, comes from a problem with one row per
+    pattern. A staircase of 15 blocks has at most 16 patterns whatever the part count.
+
+    ``P`` holds one row per pattern and one column per set of identical design columns.
+    Statistics, in order: one coefficient per column of ``P``, then one total per
     ``dependent`` group. ``column_stat[j]`` is the statistic of design column ``j`` (-1 for
     a block that never ran) and ``group_stat[i]`` that of group ``i`` (-1 for none).
     """
 
-    R: Array
-    column_of: NDArray[np.int64]  # design column -> column of R, -1 for absent
+    P: Array
+    of_part: NDArray[np.intp]  # part -> its row of P
+    column_of: NDArray[np.intp]  # design column -> column of P, -1 for absent
     share: Array  # design column -> 1 / size of its identical set
-    dependent: list[NDArray[np.int64]]  # per dependent group: its columns of R
+    dependent: list[NDArray[np.intp]]  # per dependent group: its columns of P
     column_stat: list[int]
     group_stat: list[int]
 
     @classmethod
-    def build(cls, A: Array, groups: list[_Group]) -> _Reduced:
+    def build(cls, patterns: Array, of_part: NDArray[np.intp], groups: list[_Group]) -> _Model:
         absent = {g.members[0] for g in groups if g.kind == "absent"}
-        classes = _identical_classes(A, skip=absent)
-        column_of = np.full(A.shape[1], -1, dtype=np.int64)
-        share = np.zeros(A.shape[1])
+        classes = _identical_classes(patterns, skip=absent)
+        column_of = np.full(patterns.shape[1], -1, dtype=np.intp)
+        share = np.zeros(patterns.shape[1])
         for i, members in enumerate(classes):
             column_of[members] = i
             share[members] = 1.0 / len(members)
-        R = A[:, [c[0] for c in classes]]
-        dependent, group_stat = [], []
+        dependent: list[NDArray[np.intp]] = []
+        group_stat = []
         for g in groups:
             if g.kind == "identical":
                 group_stat.append(int(column_of[g.members[0]]))
             elif g.kind == "dependent":
-                cols = np.unique(column_of[list(g.members)])
                 group_stat.append(len(classes) + len(dependent))
-                dependent.append(cols)
+                dependent.append(np.unique(column_of[list(g.members)]))
             else:
                 group_stat.append(-1)
-        return cls(R, column_of, share, dependent, [int(c) for c in column_of], group_stat)
+        P = patterns[:, [c[0] for c in classes]]
+        return cls(P, of_part, column_of, share, dependent, [int(c) for c in column_of],
+                   group_stat)
 
-    def statistics(self, coef: Array, R: Array) -> Array:
+    def fit(self, weight: Array, total: Array) -> Array:
+        """Coefficients for parts counted ``weight`` times per pattern, summing ``total``."""
+        seen = weight > 0
+        root = np.sqrt(weight[seen])
+        return _fit(self.P[seen] * root[:, None], total[seen] / weight[seen] * root)
+
+    def fit_square(self, weight: Array, total: Array) -> Array:
+        """What ``fit`` returns, from a problem with one row per column instead of per pattern.
+
+        The objective is ``x'Gx - 2x'c + const`` with ``G = P' diag(W) P`` and ``c = P'S``;
+        with ``G = V diag(l) V'`` it equals ``||F x - d||^2 + const`` for ``F = diag(l)^(1/2)
+        V'`` and ``d = diag(l)^(-1/2) V'c`` (``c`` lies in the range of ``G``), directions
+        with ``l`` at rounding level dropped. Forming ``G`` squares the condition number:
+        ~1e-12 relative for block designs (condition ~1e2..1e3), ample for a resample,
+        so the bootstrap uses this and the point fit does not. Designs worse than
+        ``_GRAM_RANK_TOL`` allows are treated as rank-deficient here.
+        """
+        gram = self.P.T @ (weight[:, None] * self.P)
+        lam, vec = np.linalg.eigh(gram)
+        keep = lam > lam.max() * _GRAM_RANK_TOL
+        root = np.sqrt(lam[keep])
+        return _fit(root[:, None] * vec[:, keep].T, (vec[:, keep].T @ (self.P.T @ total)) / root)
+
+    def statistics(self, coef: Array, weight: Array) -> Array:
         """Coefficients, then per dependent group its mean time per part that ran it.
 
         The split inside a dependent group is arbitrary, but its contribution to each
@@ -351,9 +405,9 @@ class _Reduced:
         """
         extra = []
         for cols in self.dependent:
-            contribution = R[:, cols] @ coef[cols]
-            ran = R[:, cols].any(axis=1)
-            extra.append(contribution[ran].mean() if ran.any() else np.nan)
+            ran = weight * self.P[:, cols].any(axis=1)
+            extra.append(ran @ (self.P[:, cols] @ coef[cols]) / ran.sum() if ran.any()
+                         else np.nan)
         return np.concatenate([coef, np.asarray(extra, dtype=np.float64)])
 
     def expand(self, coef: Array) -> Array:
@@ -364,6 +418,14 @@ class _Reduced:
         return values
 
 
+def _row_patterns(A: Array) -> tuple[Array, NDArray[np.intp]]:
+    """Distinct rows of ``A`` (sorted by their bytes) and the row of each part among them."""
+    rows = np.ascontiguousarray(A)
+    keys = rows.view(np.dtype((np.void, rows.dtype.itemsize * rows.shape[1]))).ravel()
+    _, first, of_part = np.unique(keys, return_index=True, return_inverse=True)
+    return rows[first], of_part.ravel()
+
+
 def _fit(R: Array, y: Array) -> Array:
     """NNLS on ``R``; the unconstrained least-squares answer when it is already >= 0.
 
@@ -371,22 +433,32 @@ def _fit(R: Array, y: Array) -> Array:
     is feasible and no feasible point does better), so the shortcut changes no result; on
     staircase designs it spares the bootstrap most Lawson–Hanson iterations.
     """
-    coef = np.linalg.lstsq(R, y, rcond=None)[0]
+    coef = np.asarray(np.linalg.lstsq(R, y, rcond=None)[0], dtype=np.float64)
     if (coef >= 0.0).all():
         return coef
     return nnls(R, y)[0]
 
 
-def _bootstrap(model: _Reduced, y: Array, n_boot: int, seed: int) -> Array:
-    """Statistics of ``n_boot`` resamples of the parts, drawn with replacement (Efron)."""
+def _bootstrap(model: _Model, y: Array, n_boot: int, seed: int) -> Array:
+    """Statistics of ``n_boot`` resamples of the parts, drawn with replacement (Efron).
+
+    A resample is the count of times each part was drawn, so it costs three bincounts, a
+    small matrix product and a fit with one row per unknown, not a copy of the design.
+    """
     rng = np.random.default_rng(seed)
-    n = y.shape[0]
-    out = np.empty((n_boot, model.R.shape[1] + len(model.dependent)))
+    n, g = y.shape[0], model.P.shape[0]
+    out = np.empty((n_boot, model.P.shape[1] + len(model.dependent)))
     for i in range(n_boot):
-        rows = rng.integers(0, n, n)
-        R = model.R[rows]
-        out[i] = model.statistics(_fit(R, y[rows]), R)
+        drawn = _sum_by(rng.integers(0, n, n), np.ones_like(y), n)
+        weight = _sum_by(model.of_part, drawn, g)
+        total = _sum_by(model.of_part, drawn * y, g)
+        out[i] = model.statistics(model.fit_square(weight, total), weight)
     return out
+
+
+def _sum_by(index: ArrayLike, values: Array, size: int) -> Array:
+    """``out[i] = sum of values[index == i]`` for i < size."""
+    return np.bincount(index, values, minlength=size).astype(np.float64, copy=False)
 
 
 def _percentiles(boot: Array, ci: float, size: int) -> tuple[Array, Array]:
@@ -415,7 +487,8 @@ def _design(X: ArrayLike, names: list[str]) -> tuple[Array, list[str]]:
         p, b = (int(i) for i in np.argwhere(bad)[0])
         raise InputError(f"block design must hold run counts >= 0, found {X[p, b]} "
                          f"at part {p}, block {names[b]!r}")
-    return np.hstack([np.ones((X.shape[0], 1)), X]), [OVERHEAD, *names]
+    # + 0.0 turns -0.0 into 0.0: columns and rows are compared by their bytes.
+    return np.hstack([np.ones((X.shape[0], 1)), X + 0.0]), [OVERHEAD, *names]
 
 
 def _part_times(y: ArrayLike, n_parts: int) -> Array:
@@ -452,21 +525,27 @@ def _warning(groups: list[_Group], labels: list[str], point: Array,
 
 def _describe(group: _Group, labels: list[str], total: float) -> str:
     blocks = [labels[j] for j in group.members if j != 0]
-    has_overhead = group.members[0] == 0
-    one = len(blocks) == 1
+    with_overhead = group.members[0] == 0
+    its = "its time" if len(blocks) == 1 else "their times"
     if group.kind == "absent":
         return f"{blocks[0]} never ran: its time cannot be estimated"
-    if group.kind == "identical" and has_overhead:
-        return (f"{_and(blocks)} {'runs' if one else 'run'} once on every part: "
-                f"{'its time' if one else 'their times'} cannot be separated from the "
-                f"per-part overhead (their sum is {_ms(total)} ms)")
+    if group.kind == "identical" and with_overhead:
+        return (f"{_and(blocks)} {'runs' if len(blocks) == 1 else 'run'} once on every part: "
+                f"{its} cannot be separated from the per-part overhead "
+                f"(their sum is {_ms(total)} ms)")
     if group.kind == "identical":
         return (f"{_and(blocks)} always run together: their times cannot be separated "
                 f"(their sum is {_ms(total)} ms)")
-    who = _and([*(["the per-part overhead"] if has_overhead else []), *blocks])
-    return (f"{who} are linearly dependent (on every part the runs of one follow from the "
-            f"others): their times cannot be separated (together {_ms(total)} ms per part "
-            f"that ran them)")
+    if with_overhead and len(blocks) == 1:
+        return (f"{blocks[0]} runs the same number of times on every part: its time cannot "
+                f"be separated from the per-part overhead (together {_ms(total)} ms per part)")
+    if with_overhead:
+        return (f"{_and(blocks)} between them run a fixed number of times on every part: "
+                f"{its} cannot be separated from each other or from the per-part overhead "
+                f"(together {_ms(total)} ms per part)")
+    return (f"{_and(blocks)} are linearly dependent (on every part the runs of one follow "
+            f"from the others): their times cannot be separated (together {_ms(total)} ms "
+            f"per part that ran any of them)")
 
 
 def _and(words: list[str]) -> str:
