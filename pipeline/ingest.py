@@ -11,10 +11,13 @@ import bz2
 import datetime as _dt
 import gzip
 import hashlib
+import io
 import json
 import lzma
 import os
+import shutil
 import sys
+import uuid
 from collections.abc import Callable, Iterable
 from concurrent.futures import ProcessPoolExecutor
 from dataclasses import dataclass, field
@@ -78,21 +81,65 @@ def sha256_of(path: Path) -> str:
     return h.hexdigest()
 
 
-def open_input(path: Path) -> tuple[IO[bytes], str]:
-    """The decompressed byte stream, whatever the file's name (magic bytes decide)."""
+class HashingReader(io.RawIOBase):
+    """A file read once for two purposes: its bytes feed the decoder (directly or through
+    a decompressor) and its sha256 at the same time, so a new log is read only once."""
+
+    def __init__(self, path: Path):
+        self._f = open(path, "rb")  # noqa: SIM115 - closed with this reader
+        self.hash = hashlib.sha256()
+
+    def readable(self) -> bool:
+        return True
+
+    def readinto(self, b: Any) -> int:
+        n = self._f.readinto(b)
+        if n:
+            self.hash.update(memoryview(b)[:n])
+        return n or 0
+
+    def finish(self) -> str:
+        """Hash what the decoder did not read (it may stop at damage) and return it."""
+        while chunk := self._f.read(READ_BYTES):
+            self.hash.update(chunk)
+        return self.hash.hexdigest()
+
+    def close(self) -> None:
+        """Decompressors close their source when done; the hash still needs the rest of
+        the file, so the file itself stays open until release()."""
+        super().close()
+
+    def release(self) -> None:
+        self._f.close()
+
+
+def open_input(path: Path, raw: IO[bytes] | None = None) -> tuple[IO[bytes], str]:
+    """The decompressed byte stream, whatever the file's name (magic bytes decide).
+    ``raw``: read the file's bytes through this object (a HashingReader, which the
+    caller releases) instead of opening the file here."""
     with open(path, "rb") as f:
         head = f.read(6)
-    for magic, kind in MAGIC:
-        if head.startswith(magic):
-            if kind == "gzip":
-                return gzip.open(path, "rb"), kind
-            if kind == "bzip2":
-                return bz2.open(path, "rb"), kind
-            if kind == "xz":
-                return lzma.open(path, "rb"), kind
-            raw = open(path, "rb")  # noqa: SIM115 - closed with the reader
-            return zstandard.ZstdDecompressor().stream_reader(raw, closefd=True), kind
-    return open(path, "rb"), "none"
+    kind = next((k for magic, k in MAGIC if head.startswith(magic)), "none")
+    if raw is None:
+        if kind == "gzip":
+            return gzip.open(path, "rb"), kind
+        if kind == "bzip2":
+            return bz2.open(path, "rb"), kind
+        if kind == "xz":
+            return lzma.open(path, "rb"), kind
+        if kind == "zstd":
+            src = open(path, "rb")  # noqa: SIM115 - closed with the reader
+            return zstandard.ZstdDecompressor().stream_reader(src, closefd=True), kind
+        return open(path, "rb"), kind
+    if kind == "gzip":
+        return gzip.GzipFile(fileobj=raw, mode="rb"), kind
+    if kind == "bzip2":
+        return bz2.BZ2File(raw, "rb"), kind
+    if kind == "xz":
+        return lzma.LZMAFile(raw, "rb"), kind
+    if kind == "zstd":
+        return zstandard.ZstdDecompressor().stream_reader(raw, closefd=False), kind
+    return io.BufferedReader(raw, READ_BYTES), kind  # type: ignore[arg-type]
 
 
 def ingest(store: Store, paths: Iterable[str | os.PathLike[str]], workers: int | None = None,
@@ -109,10 +156,24 @@ def ingest(store: Store, paths: Iterable[str | os.PathLike[str]], workers: int |
     return report
 
 
-def _new_files(store: Store, files: list[Path], report: IngestReport) -> list[tuple[Path, str]]:
-    todo, seen = [], {}
+def _new_files(store: Store, files: list[Path],
+               report: IngestReport) -> list[tuple[Path, str | None]]:
+    """Files not stored yet. A file whose size no stored or queued file has cannot be a
+    duplicate: it is hashed while it is decoded (digest None), so it is read once."""
+    todo: list[tuple[Path, str | None]] = []
+    seen: dict[str, str] = {}
+    sizes = store.known_sizes()
+    queued: dict[int, list[int]] = {}
     for p in files:
         try:
+            size = p.stat().st_size
+            if size not in sizes and size not in queued:
+                queued[size] = [len(todo)]
+                todo.append((p, None))
+                continue
+            for i in queued.pop(size, []):  # hash the earlier one of this size after all
+                todo[i] = (todo[i][0], sha256_of(todo[i][0]))
+                seen[todo[i][1]] = str(todo[i][0])  # type: ignore[index]
             digest = sha256_of(p)
         except OSError as e:
             report.rejected.append({"path": str(p), "reason": f"cannot read: {e.strerror}"})
@@ -129,7 +190,7 @@ def _new_files(store: Store, files: list[Path], report: IngestReport) -> list[tu
     return todo
 
 
-def _decode_all(store: Store, todo: list[tuple[Path, str]], workers: int | None):
+def _decode_all(store: Store, todo: list[tuple[Path, str | None]], workers: int | None):
     n = workers if workers is not None else _default_workers(todo)
     if n <= 1 or len(todo) <= 1:
         for p, digest in todo:
@@ -141,7 +202,7 @@ def _decode_all(store: Store, todo: list[tuple[Path, str]], workers: int | None)
             yield fut.result()
 
 
-def _default_workers(todo: list[tuple[Path, str]]) -> int:
+def _default_workers(todo: list[tuple[Path, str | None]]) -> int:
     # A process pool costs about a second to start; worth it only for a lot of bytes.
     total = sum(p.stat().st_size for p, _ in todo)
     return min(os.cpu_count() or 1, 4) if total > (256 << 20) else 1
@@ -149,6 +210,13 @@ def _default_workers(todo: list[tuple[Path, str]]) -> int:
 
 def _commit(store: Store, entry: dict[str, Any], staged_root: str | None,
             report: IngestReport) -> None:
+    known = store.known(entry["sha256"])
+    if known is not None:  # hashed while decoding, and the same content is stored already
+        if staged_root:
+            shutil.rmtree(staged_root, ignore_errors=True)
+        report.skipped.append({"path": entry["path"], "reason":
+                               f"same content as {known['path']} ({known['file_id']})"})
+        return
     if entry["status"] == "rejected":
         store.register_only(entry)
         report.rejected.append({"path": entry["path"], "reason": entry["error"]})
@@ -162,43 +230,58 @@ def _commit(store: Store, entry: dict[str, Any], staged_root: str | None,
     report.ingested.append(item)
 
 
-def decode_to_staging(store_path: str, path: str, digest: str) -> tuple[dict, str | None]:
+def decode_to_staging(store_path: str, path: str,
+                      digest: str | None) -> tuple[dict, str | None]:
     """Decode one log into the store's staging area (runs in a worker process too).
-    Returns its registry entry and the staging folder (None when rejected)."""
+    ``digest`` None: hash the file while decoding it. Returns its registry entry and the
+    staging folder (None when rejected)."""
     store = Store(store_path)
-    file_id = digest[:16]
     p = Path(path)
     entry: dict[str, Any] = {
-        "file_id": file_id, "path": path, "sha256": digest, "size_bytes": p.stat().st_size,
+        "path": path, "size_bytes": p.stat().st_size,
         "ingested_at": _dt.datetime.now().replace(microsecond=0),
         "tandem_version": __version__, "dropped_results": 0,
     }
-    staged = store.stage(file_id)
+    staged = store.stage(digest[:16] if digest else f"new-{uuid.uuid4().hex}")
+    hasher = HashingReader(p) if digest is None else None
     try:
-        entry.update(_decode_into(p, staged))
-    except TandemError as e:
-        staged.discard()
-        entry.update(status="rejected", error=_one_line(e), format=entry.get("format"),
-                     records=0, parts=0)
-        return entry, None
-    staged.close()
-    return entry, str(staged.root)
-
-
-def _decode_into(p: Path, staged: Staged) -> dict[str, Any]:
-    stream, compression = open_input(p)
-    with stream:
         try:
-            head = stream.read(65536)
-        except (OSError, EOFError, lzma.LZMAError, zstandard.ZstdError) as e:
-            raise InputError(f"cannot decompress ({compression}): {e}") from None
+            entry.update(_decode_into(p, staged, hasher))
+            root: str | None = str(staged.root)
+        except TandemError as e:
+            staged.discard()
+            entry.update(status="rejected", error=_one_line(e), records=0, parts=0)
+            entry.setdefault("format", None)
+            root = None
+        if hasher is not None:
+            digest = hasher.finish()
+    finally:
+        if hasher is not None:
+            hasher.release()
+    assert digest is not None
+    entry.update(sha256=digest, file_id=digest[:16])
+    if root is not None:
+        staged.close()
+    return entry, root
+
+
+def _decode_into(p: Path, staged: Staged, raw: IO[bytes] | None = None) -> dict[str, Any]:
+    stream, compression = open_input(p, raw)
+    with stream:
+        head, err = _read(stream, 65536)
+        if err is not None and head[2:4] != b"\x00\x0a":
+            raise InputError(f"cannot decompress ({compression}): {err}")
         if not head:
             raise InputError("empty file" if compression == "none" else
                              f"empty after {compression} decompression")
         if head[2:4] == b"\x00\x0a":
-            info = _decode_stdf(head, stream, staged)
+            info = _decode_stdf(head, stream, staged, err)
         elif _sniff_csv(head):
-            info = _decode_csv(head + stream.read(), str(p), staged)
+            rest, err = _read(stream, -1)
+            if err is not None:
+                raise InputError(f"cannot decompress ({compression}): damaged after "
+                                 f"{len(head) + len(rest)} bytes: {err}")
+            info = _decode_csv(head + rest, str(p), staged)
         else:
             raise InputError("not a datalog: neither STDF V4 (no FAR record at the start) "
                              "nor a timing CSV (no lot_id,touchdown,site,part_id,block,"
@@ -207,7 +290,29 @@ def _decode_into(p: Path, staged: Staged) -> dict[str, Any]:
     return info
 
 
-def _decode_stdf(head: bytes, stream: IO[bytes], staged: Staged) -> dict[str, Any]:
+_STREAM_ERRORS = (OSError, EOFError, lzma.LZMAError, zstandard.ZstdError)
+
+
+def _read(stream: IO[bytes], n: int) -> tuple[bytes, BaseException | None]:
+    """Up to n bytes (n < 0: to the end), and the error that stopped the read, if any.
+    A damaged compressed stream fails part-way through a read; what it decompressed
+    before the damage is returned, not lost with the exception."""
+    pieces: list[bytes] = []
+    got = 0
+    try:
+        while n < 0 or got < n:
+            piece = stream.read1(READ_BYTES if n < 0 else n - got)  # type: ignore[attr-defined]
+            if not piece:
+                break
+            pieces.append(piece)
+            got += len(piece)
+    except _STREAM_ERRORS as e:
+        return b"".join(pieces), e
+    return b"".join(pieces), None
+
+
+def _decode_stdf(head: bytes, stream: IO[bytes], staged: Staged,
+                 err: BaseException | None = None) -> dict[str, Any]:
     dec = Decoder(Limits(batch_bytes=READ_BYTES))
     damage = None
 
@@ -217,15 +322,13 @@ def _decode_stdf(head: bytes, stream: IO[bytes], staged: Staged) -> dict[str, An
 
     try:
         put(dec.feed(head))
-        while True:
-            try:
-                chunk = stream.read(READ_BYTES)
-            except (OSError, EOFError, lzma.LZMAError, zstandard.ZstdError) as e:
-                damage = f"compressed stream damaged after {dec._base + len(dec._buf)} bytes: {e}"
-                break
+        while err is None:
+            chunk, err = _read(stream, READ_BYTES)
             if not chunk:
                 break
             put(dec.feed(chunk))
+        if err is not None:
+            damage = f"compressed stream damaged after {dec._base + len(dec._buf)} bytes: {err}"
         put(dec.close())
     except FormatError as e:
         if dec.records == 0:

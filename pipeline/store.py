@@ -281,6 +281,11 @@ class Store:
                 "file_id", pa.array([], pa.large_string()))
         return pa.concat_tables(rows)
 
+    def known_sizes(self) -> set[int]:
+        """Sizes of every registered log: a file of another size cannot be a duplicate."""
+        reg = self.registry()
+        return set(reg.column("size_bytes").to_pylist())
+
     def known(self, sha256: str) -> dict[str, Any] | None:
         """The registry entry of a log with this content, if any."""
         if self._known is None:

@@ -365,10 +365,14 @@ class Decoder:
         pk = table.column("part_key").to_numpy()
         pi = index[np.where(pk < 0, len(index) - 1, pk)]
         ready = (pi >= 0) | (pk < 0)
-        self._held[name] = [table.filter(pa.array(~ready))] if not ready.all() else []
-        if not ready.any():
+        k = int(ready.sum())
+        if ready[:k].all():  # the usual case: only the last touchdown's rows wait
+            out, rest = table.slice(0, k), table.slice(k)
+        else:
+            out, rest = table.filter(_bools(ready)), table.filter(_bools(~ready))
+        self._held[name] = [rest] if rest.num_rows else []
+        if not k:
             return []
-        out = table.filter(pa.array(ready))
         part_index = pa.array(pi[ready], pa.int64(), mask=pk[ready] < 0)
         out = out.add_column(1, "part_index", part_index)
         return [(name.lower(), out)]
