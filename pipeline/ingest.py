@@ -250,7 +250,8 @@ def decode_to_staging(store_path: str, path: str,
             root: str | None = str(staged.root)
         except TandemError as e:
             staged.discard()
-            entry.update(status="rejected", error=_one_line(e), records=0, parts=0)
+            reason = _one_line(e).removeprefix(f"{path}: ")  # the report names the file
+            entry.update(status="rejected", error=reason, records=0, parts=0)
             entry.setdefault("format", None)
             root = None
         if hasher is not None:

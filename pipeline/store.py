@@ -32,7 +32,7 @@ from typing import TYPE_CHECKING, Any
 import pyarrow as pa
 import pyarrow.parquet as pq
 
-from .errors import StoreError
+from .errors import StoreError, UsageError
 from .schemas import DERIVED, table_schemas
 
 if TYPE_CHECKING:  # duckdb and polars load only for queries: ingest starts faster
@@ -157,7 +157,8 @@ class Store:
         self._known: dict[str, dict[str, Any]] | None = None
         self.catalog_warning: str | None = None
         if self.path.exists() and not self.path.is_dir():
-            raise StoreError(f"{self.path}: exists and is not a folder")
+            raise UsageError(f"{self.path}: exists and is not a folder (--store takes a "
+                             f"folder; it is created when missing)")
         (self.path / "tables").mkdir(parents=True, exist_ok=True)
         self._ensure_schema_files()
 

@@ -140,10 +140,11 @@ def test_whitespace_only_line_counts_as_blank() -> None:
     assert column(log, "line") == [2, 4]
 
 
-def test_stray_control_whitespace_around_cells_is_trimmed() -> None:
-    log = read(GOOD + "LOT-Q7,0,1,U2,contact,0\r,1\n" + "LOT-Q7,0,2,U3,contact\x0c,0,1\n")
-    assert column(log, "start_ms") == [0.0, 0.0, 0.0]
-    assert column(log, "block") == ["contact"] * 3
+@pytest.mark.parametrize("blank", ["\r", "\x0b", "\x0c"])
+def test_stray_control_whitespace_around_cells_is_trimmed(blank: str) -> None:
+    log = read(GOOD + f"LOT-Q7,0,1,U2,{blank}contact{blank},0,{blank}1{blank}\n")
+    assert column(log, "block") == ["contact", "contact"]
+    assert column(log, "end_ms") == [1.0, 1.0]
 
 
 def test_empty_part_id_is_null() -> None:
@@ -195,6 +196,8 @@ ERRORS = [
     (GOOD + "L,0,0,U,b,0,1,9\n", "timing.csv: line 3: expected 7 fields (as in the header), "
      "found 8"),
     (GOOD + 'L,0,0,"U\nV",b,0,1\nL,0,0,U,b,0\n', "timing.csv: line 5: expected 7 fields "
+     "(as in the header), found 6"),
+    (GOOD + 'L,0,0,"U\nV",b,0\nL,0,0,U,b,0,1\n', "timing.csv: line 3: expected 7 fields "
      "(as in the header), found 6"),
     (GOOD + 'L,0,0,U,"b,0,1\nL,0,0,U,b,0,1\n', "timing.csv: line 3: a quoted field is "
      "never closed"),
