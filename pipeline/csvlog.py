@@ -28,6 +28,7 @@ import polars as pl
 import pyarrow as pa
 
 from .errors import InputError
+from .schemas import TIMING_CSV
 
 __all__ = ["CsvLog", "REQUIRED_COLUMNS", "OPTIONAL_COLUMNS", "TIMING_CSV_SCHEMA",
            "read_timing_csv", "sniff_timing_csv"]
@@ -35,13 +36,8 @@ __all__ = ["CsvLog", "REQUIRED_COLUMNS", "OPTIONAL_COLUMNS", "TIMING_CSV_SCHEMA"
 REQUIRED_COLUMNS = ("lot_id", "touchdown", "site", "part_id", "block", "start_ms", "end_ms")
 OPTIONAL_COLUMNS = ("head", "hard_bin", "soft_bin", "passed", "test_time_ms")
 
-TIMING_CSV_SCHEMA = pa.schema([
-    ("lot_id", pa.string()), ("touchdown", pa.int64()), ("site", pa.int64()),
-    ("part_id", pa.string()), ("block", pa.string()), ("start_ms", pa.float64()),
-    ("end_ms", pa.float64()), ("head", pa.int64()), ("hard_bin", pa.int64()),
-    ("soft_bin", pa.int64()), ("passed", pa.bool_()), ("test_time_ms", pa.float64()),
-    ("line", pa.int64()),
-])
+# The table this reader returns is the stored table's schema (one definition).
+TIMING_CSV_SCHEMA = TIMING_CSV
 
 _SEPARATORS = (",", ";", "\t")
 _BOM = b"\xef\xbb\xbf"
