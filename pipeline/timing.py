@@ -50,20 +50,21 @@ def refresh_estimates(store: Store, force: bool = False) -> list[str]:
 def _design(store: Store, lot: str) -> tuple[np.ndarray, np.ndarray, list[str], np.ndarray]:
     """Parts x blocks matrix of which blocks each part ran, and part times (ms)."""
     runs = store.sql("""
-        select p.file_id, p.part_index, p.site, p.test_time_ms, b.block
+        select p.file_id, p.part_index, p.site, p.test_time_ms, b.block, b.first_rec
         from parts p join part_blocks b using (file_id, part_index)
         where p.lot_id = ? and p.test_time_ms is not null and b.block <> 'unassigned'
         order by p.file_id, p.part_index""", [lot])
     if runs.is_empty():
         raise InputError("no parts with both a recorded test time and assigned blocks")
-    blocks = sorted(set(runs["block"].to_list()),
-                    key=lambda b: runs.filter(pl.col("block") == b)["part_index"].min())
+    # columns in program order: by where each block first appears in its log
+    blocks = (runs.group_by("block").agg(pl.col("first_rec").min())
+              .sort("first_rec", "block")["block"].to_list())
     keys = runs.select("file_id", "part_index", "site", "test_time_ms").unique(
         maintain_order=True)
     row = {(f, p): i for i, (f, p, _, _) in enumerate(keys.iter_rows())}
     col = {b: j for j, b in enumerate(blocks)}
     X = np.zeros((len(keys), len(blocks)))
-    for f, p, _, _, b in runs.iter_rows():
+    for f, p, _, _, b, _ in runs.iter_rows():
         X[row[(f, p)], col[b]] = 1.0
     return X, keys["test_time_ms"].to_numpy(), blocks, keys["site"].to_numpy()
 
@@ -71,7 +72,7 @@ def _design(store: Store, lot: str) -> tuple[np.ndarray, np.ndarray, list[str], 
 def _estimate_lot(store: Store, lot: str, file_ids: str, solve: Any) -> pa.Table:
     X, y, blocks, sites = _design(store, lot)
     rows = []
-    groups = [(None, np.ones(len(y), dtype=bool))]
+    groups: list[tuple[int | None, np.ndarray]] = [(None, np.ones(len(y), dtype=bool))]
     groups += [(int(s), sites == s) for s in np.unique(sites)
                if len(np.unique(sites)) > 1
                and (sites == s).sum() >= MIN_PARTS_PER_UNKNOWN * (len(blocks) + 1)]
@@ -209,7 +210,9 @@ def _overhead_ms(store: Store, lot: str, per_site: pl.DataFrame) -> float | None
                        where lot_id = ? and block = 'overhead' and site is null""", [lot])
     if not est.is_empty():
         return float(est["mean_ms"][0])
-    return per_site["unattributed_ms"].min() if not per_site.is_empty() else None
+    if per_site.is_empty():
+        return None
+    return float(per_site["unattributed_ms"].min())  # type: ignore[arg-type]
 
 
 def _index_ms(store: Store, lot: str, touchdown_total_ms: float, touchdowns: int) -> float | None:
@@ -240,7 +243,7 @@ def drift(store: Store, k: float = 3.0, window: int = 10, min_history: int = 3,
         group by b.block, b.lot_id
         order by b.block, started_at, b.lot_id""")
     rows = []
-    for (block,), g in df.group_by(["block"], maintain_order=True):
+    for _, g in df.group_by(["block"], maintain_order=True):
         vals = g["mean_ms"].to_numpy()
         for i, r in enumerate(g.iter_rows(named=True)):
             hist = vals[max(0, i - window):i]
