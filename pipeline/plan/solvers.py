@@ -1,0 +1,200 @@
+"""Solvers of the plan's ``Problem``; each is ``solve(problem, time_limit_s) -> Solution``.
+
+- ``cpsat``: OR-Tools CP-SAT, exact given time. Fixed-size interval variables; a pool of
+  capacity 1 whose members each take 1 becomes NoOverlap, any other pool Cumulative;
+  precedences are linear. Deterministic: a fixed seed and CP-SAT's interleaved search
+  (its portfolio run in fixed batches over a fixed number of workers, 2 by default), so
+  the same input gives the same schedule whenever the solve ends before the time limit;
+  a solve the limit stops may find more or less on a faster or slower machine. The
+  greedy schedule is its hint and its horizon (an upper bound known to be reachable).
+- ``greedy``: serial SGS under a few priority rules, each schedule improved by
+  forward-backward justification, the best kept — always feasible when a schedule
+  exists; the fallback when CP-SAT finds nothing.
+- ``exhaustive``: serial SGS over every precedence-feasible activity list, branch and
+  bound — exact, for the small cases the tests check the others against.
+
+Every solver reports a lower bound: the model's own (``model.lower_bound_us``) or, for
+CP-SAT, the larger of that and the solver's proven bound; and ``proven_optimal`` when the
+makespan meets it.
+"""
+
+from __future__ import annotations
+
+import math
+import time
+from collections.abc import Callable
+
+from .model import Problem, Solution, heads_tails, lower_bound_us, make_solution
+from .sgs import SerialSGS, justify, left_shift
+
+Solver = Callable[[Problem, float], Solution]
+
+
+def _infeasible(problem: Problem, name: str, t0: float) -> Solution | None:
+    if problem.infeasible_reason() is None:
+        return None
+    return Solution("infeasible", None, 0.0, False, (), name, time.perf_counter() - t0)
+
+
+# ------------------------------------------------------------------ greedy
+
+
+def _priority_rules(problem: Problem) -> list[list[float]]:
+    """Priority values, smaller first: longest path to the end first (a critical-path
+    rule); program order (activity index); most pool work first (a resource rule)."""
+    _, tail = heads_tails(problem)
+    acts = problem.activities
+    work = [sum(acts[i].duration_us * q / problem.pools[p].capacity
+                for p, q in problem.pools_of[i]) for i in range(len(acts))]
+    return [[-(a.duration_us + t) for a, t in zip(acts, tail, strict=True)],
+            [float(i) for i in range(len(acts))],
+            [-w for w in work]]
+
+
+def greedy_starts(problem: Problem) -> list[int]:
+    """The best serial-SGS schedule over the priority rules (first rule on ties), each
+    improved by forward-backward justification."""
+    best: list[int] | None = None
+    best_ms = math.inf
+    for prio in _priority_rules(problem):
+        sgs = SerialSGS(problem)
+        left = set(range(len(problem.activities)))
+        while left:
+            i = min((j for j in left if sgs.ready(j)), key=lambda j: (prio[j], j))
+            sgs.place(i, sgs.earliest(i))
+            left.discard(i)
+        starts = justify(problem, sgs.starts())
+        ms = max((s + a.duration_us for s, a in zip(starts, problem.activities, strict=True)),
+                 default=0)
+        if ms < best_ms:
+            best, best_ms = starts, ms
+    return best or []
+
+
+def solve_greedy(problem: Problem, time_limit_s: float = 0.0) -> Solution:
+    t0 = time.perf_counter()
+    bad = _infeasible(problem, "greedy", t0)
+    if bad:
+        return bad
+    starts = greedy_starts(problem)
+    return make_solution(problem, "feasible", starts, lower_bound_us(problem), "greedy",
+                         time.perf_counter() - t0)
+
+
+# ------------------------------------------------------------------ exhaustive
+
+
+def solve_exhaustive(problem: Problem, time_limit_s: float = 60.0) -> Solution:
+    """Every precedence-feasible list through serial SGS, kept to lists whose starts
+    come out in (start, index) order: serial SGS on an active schedule's activities
+    sorted by start rebuilds that very schedule, so those lists reach every active
+    schedule, and an optimal schedule is among them. Branch and bound on the partial
+    makespan. Status "feasible" (not proven) if the time limit stops it."""
+    t0 = time.perf_counter()
+    bad = _infeasible(problem, "exhaustive", t0)
+    if bad:
+        return bad
+    n = len(problem.activities)
+    bound = lower_bound_us(problem)
+    best = greedy_starts(problem)
+    dur = [a.duration_us for a in problem.activities]
+    best_ms = [max((s + d for s, d in zip(best, dur, strict=True)), default=0)]
+    sgs = SerialSGS(problem)
+    stopped = [False]
+    nodes = [0]
+
+    def walk(depth: int, last: tuple[int, int], span: int) -> None:
+        if depth == n:
+            if span < best_ms[0]:
+                best_ms[0], best[:] = span, sgs.starts()
+            return
+        for i in range(n):
+            if best_ms[0] <= bound or stopped[0] or not sgs.ready(i):
+                continue
+            t = sgs.earliest(i)
+            if (t, i) < last or max(span, t + dur[i]) >= best_ms[0]:
+                continue
+            nodes[0] += 1
+            if nodes[0] % 2000 == 0 and time.perf_counter() - t0 > time_limit_s:
+                stopped[0] = True
+                return
+            sgs.place(i, t)
+            walk(depth + 1, (t, i), max(span, t + dur[i]))
+            sgs.unplace(i)
+
+    walk(0, (-1, -1), 0)
+    status = "feasible" if stopped[0] else "optimal"
+    proven_bound = bound if stopped[0] else best_ms[0]
+    return make_solution(problem, status, best, proven_bound, "exhaustive",
+                         time.perf_counter() - t0)
+
+
+# ------------------------------------------------------------------ CP-SAT
+
+
+def solve_cpsat(problem: Problem, time_limit_s: float = 10.0, workers: int = 2,
+                seed: int = 0) -> Solution:
+    from ortools.sat.python import cp_model
+
+    t0 = time.perf_counter()
+    bad = _infeasible(problem, "cpsat", t0)
+    if bad:
+        return bad
+    acts = problem.activities
+    hint = greedy_starts(problem)
+    horizon = max((s + a.duration_us for s, a in zip(hint, acts, strict=True)), default=0)
+    bound = lower_bound_us(problem)
+    head, tail = heads_tails(problem)
+    m = cp_model.CpModel()
+    start = [m.new_int_var(head[i], horizon - a.duration_us - tail[i], f"s{i}")
+             for i, a in enumerate(acts)]
+    interval = [m.new_fixed_size_interval_var(start[i], a.duration_us, f"i{i}")
+                for i, a in enumerate(acts)]
+    for first, then in problem.precedences:
+        m.add(start[then] >= start[first] + acts[first].duration_us)
+    for pool in problem.pools:
+        members = [interval[i] for i, _ in pool.demands]
+        if pool.capacity == 1 and all(q == 1 for _, q in pool.demands):
+            m.add_no_overlap(members)
+        else:
+            m.add_cumulative(members, [q for _, q in pool.demands], pool.capacity)
+    makespan = m.new_int_var(min(bound, horizon), horizon, "makespan")
+    for i, a in enumerate(acts):
+        if not problem.successors[i]:
+            m.add(makespan >= start[i] + a.duration_us)
+    m.minimize(makespan)
+    for v, s in zip(start, hint, strict=True):
+        m.add_hint(v, s)
+    solver = cp_model.CpSolver()
+    solver.parameters.max_time_in_seconds = max(time_limit_s, 0.01)
+    solver.parameters.num_workers = workers
+    # Interleaved search runs CP-SAT's portfolio (including its lower-bound and LNS
+    # workers) in fixed batches: the same answer for the same input whatever the thread
+    # timing, as long as the solve ends before the time limit.
+    solver.parameters.interleave_search = workers > 1
+    solver.parameters.random_seed = seed
+    code = solver.solve(m)
+    wall = time.perf_counter() - t0
+    if code == cp_model.INFEASIBLE:  # cannot happen when the hint is valid; kept honest
+        return Solution("infeasible", None, 0.0, False, (), "cpsat", wall)
+    if code not in (cp_model.OPTIMAL, cp_model.FEASIBLE):
+        return Solution("unknown", None, bound / 1000, False, (), "cpsat", wall)
+    starts = left_shift(problem, [solver.value(v) for v in start])
+    bound = max(bound, math.ceil(solver.best_objective_bound - 1e-6))
+    status = "optimal" if code == cp_model.OPTIMAL else "feasible"
+    return make_solution(problem, status, starts, bound, "cpsat", wall)
+
+
+SOLVERS: dict[str, Solver] = {"cpsat": solve_cpsat, "greedy": solve_greedy,
+                              "exhaustive": solve_exhaustive}
+
+
+def solve(problem: Problem, time_limit_s: float = 10.0, backend: str = "cpsat") -> Solution:
+    """Solve with ``backend``; CP-SAT falls back to the greedy schedule if it finds none."""
+    sol = SOLVERS[backend](problem, time_limit_s)
+    if sol.status == "unknown":
+        fallback = solve_greedy(problem)
+        return make_solution(problem, "feasible", fallback.starts_us,
+                             int(round(sol.lower_bound_ms * 1000)), "greedy (CP-SAT found none)",
+                             sol.wall_s + fallback.wall_s)
+    return sol

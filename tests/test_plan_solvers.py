@@ -1,0 +1,224 @@
+"""One contract suite over every solver backend (STYLE.md item 8), on small random plans.
+
+References from outside the solvers:
+- brute force over every integer start vector (tiny cases) checks the exhaustive search;
+- the exhaustive search (tiny to small cases) checks CP-SAT's optimum and every bound;
+- ``check_schedule`` below reads the *spec* — blocks, sites, ``after``, pinned barriers,
+  resources, power and parallel limits — and never the compiled ``Problem``, so a mistake
+  in ``build_problem`` cannot hide in both.
+"""
+
+from __future__ import annotations
+
+import itertools
+import random
+from collections.abc import Sequence
+
+import pytest
+
+from pipeline.plan.model import (
+    BlockSpec,
+    PlanSpec,
+    PoolSpec,
+    Problem,
+    Solution,
+    build_problem,
+    lower_bound_us,
+)
+from pipeline.plan.solvers import SOLVERS, solve, solve_exhaustive
+
+Schedule = Sequence[tuple[str, int, float, float]]
+EPS = 1e-6
+
+
+# ------------------------------------------------------------------ the independent checker
+
+
+def check_schedule(spec: PlanSpec, schedule: Schedule) -> list[str]:
+    """Every way ``schedule`` breaks ``spec``; [] when it is feasible. Program order is
+    the spec's block order (the random cases only ever name earlier blocks in after)."""
+    problems: list[str] = []
+    at = {(b, s): (t0, t1) for b, s, t0, t1 in schedule}
+    if len(at) != len(schedule) or set(at) != {(b.name, s) for b in spec.blocks
+                                                 for s in spec.sites}:
+        return ["not exactly one interval per block and site"]
+    names = [b.name for b in spec.blocks]
+    for b in spec.blocks:
+        for s in spec.sites:
+            t0, t1 = at[(b.name, s)]
+            if t0 < -EPS or abs((t1 - t0) - max(b.times_ms[s], 0.001)) > 1e-3:
+                problems.append(f"{b.name}@{s}: wrong duration or negative start")
+            for d in b.after:
+                if t0 < at[(d, s)][1] - EPS:
+                    problems.append(f"{b.name}@{s} starts before {d} ends")
+            if b.pinned:
+                k = names.index(b.name)
+                if any(at[(x, s)][1] > t0 + EPS for x in names[:k]):
+                    problems.append(f"pinned {b.name}@{s}: an earlier block has not ended")
+                if any(at[(x, s)][0] < t1 - EPS for x in names[k + 1:]):
+                    problems.append(f"pinned {b.name}@{s}: a later block starts too soon")
+    for t, _ in sorted({(t0, 0) for _, _, t0, _ in schedule}):
+        running = [(spec.block(b), s) for b, s, t0, t1 in schedule
+                   if t0 <= t + EPS and t < t1 - EPS]
+        problems += _load_problems(spec, running, t)
+    return problems
+
+
+def _load_problems(spec: PlanSpec, running: list[tuple[BlockSpec, int]], t: float) -> list[str]:
+    out = []
+    for s in spec.sites:
+        here = [b for b, site in running if site == s]
+        if spec.power_w is not None and sum(b.power_w for b in here) > spec.power_w + 1e-9:
+            out.append(f"t={t}: site {s} draws more than {spec.power_w} W")
+        if spec.parallel is not None and len(here) > spec.parallel:
+            out.append(f"t={t}: site {s} runs more than {spec.parallel} blocks")
+    names = {u for b, _ in running for u in b.uses}
+    for u in names:
+        res = spec.resources.get(u, PoolSpec())
+        groups = [None] if res.shared else list(spec.sites)
+        for g in groups:
+            n = sum(1 for b, s in running if u in b.uses and (g is None or s == g))
+            if n > res.count:
+                out.append(f"t={t}: {u} used {n} times, {res.count} exist")
+    return out
+
+
+# ------------------------------------------------------------------ random small plans
+
+
+def random_spec(seed: int, max_acts: int = 8) -> PlanSpec:
+    rng = random.Random(seed)
+    n_sites = rng.choice([1, 1, 2, 2, 3])
+    n_blocks = rng.randint(2, max(2, max_acts // n_sites))
+    sites = tuple(range(1, n_sites + 1))
+    resources = {"meter": PoolSpec(rng.choice([1, 1, 2]), True),
+                 "port": PoolSpec(rng.choice([1, 2]), False)}
+    power = rng.choice([None, 2.0, 3.0])
+    blocks = []
+    for k in range(n_blocks):
+        nominal = rng.randint(1, 40)
+        times = {s: float(max(1, nominal + rng.randint(-2, 2))) for s in sites}
+        uses = tuple(u for u in ("meter", "port", "probe") if rng.random() < 0.3)
+        after = tuple(b.name for b in blocks if rng.random() < 0.2)
+        watts = rng.choice([0.0, 0.5, 1.0, 1.5, 2.0])
+        blocks.append(BlockSpec(f"b{k}", times, min(watts, power or watts), uses, after,
+                                pinned=rng.random() < 0.15))
+    return PlanSpec(sites, tuple(blocks), resources, power, rng.choice([None, 1, 2, 3]))
+
+
+SEEDS = range(40)
+
+
+@pytest.fixture(scope="module")
+def optimum() -> dict[int, Solution]:
+    """The exhaustive optimum of every random case: the reference for the others."""
+    out = {}
+    for seed in SEEDS:
+        sol = solve_exhaustive(build_problem(random_spec(seed)), 60.0)
+        assert sol.status == "optimal", seed
+        out[seed] = sol
+    return out
+
+
+# ------------------------------------------------------------------ the contract
+
+
+@pytest.mark.parametrize("backend", sorted(SOLVERS))
+@pytest.mark.parametrize("seed", SEEDS)
+def test_backend_contract(backend: str, seed: int, optimum: dict[int, Solution]) -> None:
+    spec = random_spec(seed)
+    sol = SOLVERS[backend](build_problem(spec), 10.0)
+    best = optimum[seed].makespan_ms
+    assert best is not None
+    assert sol.status in ("optimal", "feasible")
+    assert check_schedule(spec, sol.schedule) == []
+    assert sol.makespan_ms == pytest.approx(max(t1 for *_, t1 in sol.schedule))
+    assert sol.lower_bound_ms <= best + EPS             # a bound never beats the optimum
+    assert sol.makespan_ms >= best - EPS               # nothing beats the optimum
+    if backend != "greedy":                            # the exact ones find it
+        assert sol.proven_optimal and sol.makespan_ms == pytest.approx(best, abs=EPS)
+    if sol.proven_optimal:
+        assert sol.lower_bound_ms == pytest.approx(sol.makespan_ms)
+
+
+@pytest.mark.parametrize("backend", sorted(SOLVERS))
+def test_same_input_same_schedule(backend: str) -> None:
+    for seed in (3, 11, 29):
+        a = SOLVERS[backend](build_problem(random_spec(seed)), 10.0)
+        b = SOLVERS[backend](build_problem(random_spec(seed)), 10.0)
+        assert a.schedule == b.schedule and a.status == b.status
+
+
+def test_model_bound_never_exceeds_the_optimum(optimum: dict[int, Solution]) -> None:
+    for seed in SEEDS:
+        best = optimum[seed].makespan_ms
+        assert best is not None
+        assert lower_bound_us(build_problem(random_spec(seed))) / 1000 <= best + EPS
+
+
+# ------------------------------------------------------------------ the exhaustive search itself
+
+
+def brute_force_ms(spec: PlanSpec) -> float:
+    """The least makespan M for which some vector of integer-ms starts fits in [0, M]:
+    with integer-ms durations some optimal schedule has integer-ms starts."""
+    acts = [(b, s) for b in spec.blocks for s in spec.sites]
+    dur = [int(b.times_ms[s]) for b, s in acts]
+    for m in range(1, sum(dur) + 1):
+        for starts in itertools.product(*(range(m - d + 1) for d in dur)):
+            sched = [(b.name, s, float(t), float(t + d))
+                     for t, (b, s), d in zip(starts, acts, dur, strict=True)]
+            if not check_schedule(spec, sched):
+                return float(m)
+    raise AssertionError("the serial schedule always fits")
+
+
+def tiny_spec(seed: int) -> PlanSpec:
+    rng = random.Random(1000 + seed)
+    spec = random_spec(1000 + seed, max_acts=4)
+    blocks = [BlockSpec(b.name, {s: float(rng.randint(1, 3)) for s in spec.sites}, b.power_w,
+                        b.uses, b.after, b.pinned) for b in spec.blocks[:4 // len(spec.sites)]]
+    names = {b.name for b in blocks}
+    blocks = [BlockSpec(b.name, b.times_ms, b.power_w, b.uses,
+                        tuple(d for d in b.after if d in names), b.pinned) for b in blocks]
+    return spec.with_blocks(blocks)
+
+
+@pytest.mark.parametrize("seed", range(12))
+def test_exhaustive_matches_brute_force(seed: int) -> None:
+    spec = tiny_spec(seed)
+    sol = solve_exhaustive(build_problem(spec))
+    assert sol.makespan_ms == pytest.approx(brute_force_ms(spec))
+
+
+# ------------------------------------------------------------------ statuses and edges
+
+
+def test_infeasible_when_a_demand_exceeds_its_pool() -> None:
+    from pipeline.plan.model import Activity, Pool
+
+    p = Problem((Activity("a", 1, 10),), (), (Pool("power@site1", "power", 5, ((0, 9),)),))
+    for backend in SOLVERS:
+        sol = solve(p, 1.0, backend)
+        assert (sol.status, sol.makespan_ms, sol.schedule) == ("infeasible", None, ())
+
+
+def test_empty_plan_is_trivially_optimal() -> None:
+    p = build_problem(PlanSpec((1,), ()))
+    for backend in SOLVERS:
+        sol = solve(p, 1.0, backend)
+        assert (sol.status, sol.makespan_ms, sol.proven_optimal) == ("optimal", 0.0, True)
+
+
+def test_shared_pool_serialises_sites_and_the_bound_sees_it() -> None:
+    """Four sites share one meter for a 100 ms block: 400 ms whatever the order, and the
+    pool's load over its count says so before any search."""
+    spec = PlanSpec((1, 2, 3, 4), (BlockSpec("radio", {s: 100.0 for s in (1, 2, 3, 4)},
+                                             uses=("meter",)),),
+                    {"meter": PoolSpec(1, True)})
+    problem = build_problem(spec)
+    assert lower_bound_us(problem) == 400_000
+    for backend in SOLVERS:
+        sol = solve(problem, 5.0, backend)
+        assert sol.makespan_ms == pytest.approx(400.0) and sol.proven_optimal
+        assert check_schedule(spec, sol.schedule) == []
