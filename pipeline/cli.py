@@ -167,20 +167,9 @@ register("sites", "the multi-site view: touchdown time, MSE, imbalance, shared i
          "tandem sites --store ./store --lot PF4-L0231", _sites_options, _sites)
 
 
-# -- demo -------------------------------------------------------------------------------
-def _demo_options(p: argparse.ArgumentParser) -> None:
-    p.add_argument("--out", default="demo-out", metavar="DIR",
-                   help="where the demo writes its store and outputs (default: ./demo-out)")
-
-
-def _demo(args: argparse.Namespace) -> int:
-    from .demo import run_demo
-
-    return run_demo(args.out, print)
-
-
-register("demo", "run the whole job on the bundled sample logs",
-         "tandem demo --out ./demo-out", _demo_options, _demo)
+# The planning commands (plan, draft-map) live in cli_plan.py and register themselves.
+from . import cli_plan  # noqa: E402,F401
+from . import cli_report  # noqa: E402,F401  (report, demo)
 
 
 # -- formatting -------------------------------------------------------------------------

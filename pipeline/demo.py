@@ -1,12 +1,15 @@
-"""`tandem demo`: the whole job on the bundled, invented sample logs.
+"""`tandem demo`: the whole job on the bundled, invented sample logs —
+``sample_logs/`` → DIR/store → block times → a plan with ``sample_logs/blocks.toml`` →
+DIR/report.
 
 Everything here goes through the same API a user calls; the demo adds no logic of its
-own beyond choosing the files and the queries it shows.
+own beyond choosing the files, the lot and what it prints.
 """
 
 from __future__ import annotations
 
 import shutil
+import time
 from collections.abc import Callable
 from pathlib import Path
 
@@ -15,47 +18,59 @@ from .store import Store
 
 SAMPLES = Path(__file__).resolve().parent.parent / "sample_logs"
 LOG_PATTERNS = ("*.stdf", "*.stdf.gz", "*.csv")
+BLOCK_MAP = SAMPLES / "blocks.toml"
+# The lot the demo plans: timed by markers on four sites, so the plan has the most to
+# show. (Left to itself the planner takes the lot with the most parts: PF4-L0234, one
+# site timed only by part totals.)
+DEMO_LOT = "PF4-L0231"
 
-QUERIES = [
-    ("Parts per lot and site (from PRR, STDF V4 5/20, or the timing CSV)",
-     "select lot_id, site, count(*) as parts, round(avg(test_time_ms), 1) as mean_test_ms, "
-     "count(*) filter (where not passed) as failed from parts group by all order by all"),
-    ("Touchdowns per lot, and how their time is known",
-     "select lot_id, method, count(*) as touchdowns, round(avg(touchdown_ms), 1) as mean_ms "
-     "from touchdowns group by all order by all"),
-    ("The longest blocks by timing marker (DTR 'TT' convention), first lot",
-     "select block, site, count(*) as markers, round(avg(duration_ms), 2) as mean_ms "
-     "from markers join files using (file_id) "
-     "where path like '%L0231_w01_markers.stdf' group by all order by mean_ms desc limit 8"),
-    ("Result rows by record type",
-     "select record, count(*) as rows, count(distinct test_num) as tests from results "
-     "group by all order by all"),
-]
+Progress = Callable[[str, int, int], None]
 
 
 def sample_logs() -> list[Path]:
     if not SAMPLES.is_dir():
-        raise InputError(f"{SAMPLES}: the sample logs are not here (run from a clone of "
-                         f"the project)")
+        raise InputError(f"{SAMPLES.name}/: the sample logs are not here (run from a clone "
+                         f"of the project)")
     return sorted(p for pat in LOG_PATTERNS for p in SAMPLES.glob(pat))
 
 
-def run_demo(out: str, say: Callable[[str], None]) -> int:
-    from .cli import format_frame
+def run_demo(out: str, say: Callable[[str], None], progress: Progress | None = None) -> int:
+    from . import timing
+    from .report import build_report
+    from .report.plan import make_plan
 
+    t0 = time.perf_counter()
     out_dir = Path(out)
     store_dir = out_dir / "store"
     if store_dir.exists():
         shutil.rmtree(store_dir)  # the demo always starts from nothing
     store = Store(store_dir)
-    report = store.ingest(sample_logs())
-    say(f"Ingested {len(report.ingested)} sample logs into {store_dir} "
+    step = progress or (lambda s, d, n: None)
+    report = store.ingest(sample_logs(), progress=lambda d, n, p: step(f"ingest {Path(p).name}",
+                                                                         d, n))
+    say(f"1. Ingested {len(report.ingested)} sample logs into {store_dir} "
         f"({sum(r['records'] for r in report.ingested)} records, "
         f"{sum(r['parts'] for r in report.ingested)} parts).")
-    for line in report.problems:
-        say(f"  problem: {line}")
-    for title, query in QUERIES:
-        say(f"\n{title}:\n")
-        say(format_frame(store.sql(query), "table").rstrip())
-    say(f"\nTry your own: tandem sql --store {store_dir} \"select * from parts limit 5\"")
+    step("block times", 0, 1)
+    for line in timing.refresh_estimates(store):
+        say(f"   note: {line}")
+    top = timing.block_table(store, DEMO_LOT).head(3)
+    say(f"2. Block times of lot {DEMO_LOT}: "
+        + ", ".join(f"{b} {s:.1f} %" for b, s in zip(top["block"], top["share_pct"],
+                                                     strict=True))
+        + " of part time (tandem times --store ... for the full table).")
+    step("planning", 0, 1)
+    plan = make_plan(store, str(BLOCK_MAP), DEMO_LOT)
+    say(f"3. Plan with {BLOCK_MAP.parent.name}/{BLOCK_MAP.name}: one touchdown "
+        f"{plan['baseline_ms']:.1f} ms -> {plan['planned_ms']:.1f} ms "
+        f"({plan['saving_pct']:.1f} % less"
+        f"{', proven optimal' if plan['proven_optimal'] else ''}).")
+    files = build_report(store, out_dir / "report", blocks=str(BLOCK_MAP), lot=DEMO_LOT,
+                         plan=plan, progress=progress)
+    say(f"4. Report: {files.html} ({files.html_bytes / 1e6:.1f} MB, opens offline), "
+        f"{files.summary_md} (the one-page proposal), {files.out / 'charts'}/ "
+        f"({len(files.charts)} PNG and SVG files).")
+    say("   Read its cautions before acting on any of it.")
+    say(f"Done in {time.perf_counter() - t0:.0f} s. Open {files.html} in a browser; "
+        f"query the store with: tandem sql --store {store_dir} \"select * from parts limit 5\"")
     return report.exit_code
