@@ -167,6 +167,9 @@ def solve_cpsat(problem: Problem, time_limit_s: float = 10.0, workers: int = 2,
         m.add_hint(v, s)
     solver = cp_model.CpSolver()
     solver.parameters.max_time_in_seconds = max(time_limit_s, 0.01)
+    # A deterministic work budget that normally ends the search before the wall clock
+    # does: then a loaded machine gives the same plan as an idle one.
+    solver.parameters.max_deterministic_time = max(time_limit_s / 2, 0.005)
     solver.parameters.num_workers = workers
     # Interleaved search runs CP-SAT's portfolio (including its lower-bound and LNS
     # workers) in fixed batches: the same answer for the same input whatever the thread
