@@ -84,7 +84,7 @@ def encode_record(rec: Record | str, values: Mapping[str, Any] | None = None,
     rec = BY_NAME[rec] if isinstance(rec, str) else rec
     values = dict(values or {})
     for f in rec.fields:
-        if f.is_array and f.name in values and values.get(f.count) is None:
+        if f.count is not None and f.name in values and values.get(f.count) is None:
             values[f.count] = len(values[f.name])
     given = [i for i, f in enumerate(rec.fields) if values.get(f.name) is not None]
     last = max(given) if given else -1
@@ -94,7 +94,7 @@ def encode_record(rec: Record | str, values: Mapping[str, Any] | None = None,
         if v is None:
             v = _zero(f)
             if f.is_array:
-                v = [_zero(Field(f.name, f.type))] * int(values.get(f.count) or 0)
+                v = [_zero(Field(f.name, f.type))] * int(values.get(f.count or "") or 0)
         body += _enc_array(f, v, endian) if f.is_array else _enc_scalar(f.type, v, endian)
     if len(body) > 0xFFFF:
         raise ValueError(f"{rec.name} body of {len(body)} bytes exceeds REC_LEN")
@@ -155,7 +155,7 @@ def decode_record(rec: Record, payload: bytes, endian: str = "<") -> dict[str, A
             if not f.is_array:
                 out[f.name] = r.scalar(f.type)
                 continue
-            k = int(out.get(f.count) or 0)
+            k = int(out.get(f.count or "") or 0)
             if f.type == "N1":
                 raw = r.take((k + 1) // 2)
                 out[f.name] = [(raw[i // 2] >> (4 * (i % 2))) & 0x0F for i in range(k)]

@@ -44,7 +44,7 @@ RUN_PAD = _widest_run()
 
 
 try:
-    from . import _scan as _c
+    from . import _scan as _c  # type: ignore[attr-defined]
 except ImportError:  # the optional extension did not build: the numpy path below is used
     _c = None
 

@@ -11,7 +11,7 @@ import struct
 import numpy as np
 
 try:
-    from . import _scan as _c
+    from . import _scan as _c  # type: ignore[attr-defined]
 except ImportError:  # the optional extension did not build: slower, same answers
     _c = None
 
