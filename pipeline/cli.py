@@ -167,9 +167,9 @@ register("sites", "the multi-site view: touchdown time, MSE, imbalance, shared i
          "tandem sites --store ./store --lot PF4-L0231", _sites_options, _sites)
 
 
-# The planning commands (plan, draft-map) live in cli_plan.py and register themselves.
-from . import cli_plan  # noqa: E402,F401
-from . import cli_report  # noqa: E402,F401  (report, demo)
+# The commands of other areas live in their own modules and register themselves here on
+# import: cli_plan (plan, draft-map), cli_report (report, demo), cli_nightly (nightly).
+from . import cli_nightly, cli_plan, cli_report  # noqa: E402,F401
 
 
 # -- formatting -------------------------------------------------------------------------

@@ -16,8 +16,10 @@ import json
 import lzma
 import os
 import shutil
+import signal
 import sys
 import uuid
+import zlib
 from collections.abc import Callable, Iterable
 from concurrent.futures import ProcessPoolExecutor
 from dataclasses import dataclass, field
@@ -28,8 +30,9 @@ import zstandard
 
 from . import __version__
 from ._lean import keep_pandas_out
-from .errors import FormatError, InputError, TandemError
-from .stdf.decoder import RESULT_RECORDS, Decoder, Limits
+from .errors import FormatError, InputError, StoreError, TandemError, UsageError
+from .stdf.decoder import Decoder, Limits
+from .stdf.records import BY_NAME
 from .store import Staged, Store
 
 READ_BYTES = 8 << 20
@@ -37,11 +40,85 @@ MAGIC = [(b"\x1f\x8b", "gzip"), (b"BZh", "bzip2"), (b"\xfd7zXZ\x00", "xz"),
          (b"\x28\xb5\x2f\xfd", "zstd")]
 
 
+class ReconciliationError(StoreError):
+    """Records read and rows stored disagree: a bug, never the input's fault (exit 1).
+    The file is not stored and not registered, so the next run tries it again."""
+
+
+@dataclass(frozen=True)
+class InputLimits:
+    """What one compressed input may expand to before it is cut (a compression bomb is
+    never fully expanded). Real datalogs compress 5-20x (the gzip sample: 9.6x) and
+    DEFLATE itself tops out near 1032x, so 200x the compressed size is far past any real
+    log; the floor keeps small logs from ever being cut, the ceiling bounds one file.
+    ``TANDEM_MAX_DECOMPRESSED`` (bytes) replaces all three with one fixed limit."""
+
+    ratio: float = 200.0
+    floor_bytes: int = 256 << 20
+    max_bytes: int = 64 << 30
+
+    def max_decompressed(self, compressed_size: int) -> int:
+        return int(min(self.max_bytes, max(self.floor_bytes, self.ratio * compressed_size)))
+
+    def describe(self) -> str:
+        if self.floor_bytes == self.max_bytes:
+            return f"limit {self.max_bytes} bytes"
+        return (f"limit {self.ratio:g} x the compressed size, at least {self.floor_bytes} "
+                f"and at most {self.max_bytes} bytes")
+
+    @classmethod
+    def from_env(cls) -> InputLimits:
+        raw = os.environ.get("TANDEM_MAX_DECOMPRESSED")
+        if raw is None or not raw.strip():
+            return cls()
+        try:
+            n = int(raw)
+            if n < 1:
+                raise ValueError
+        except ValueError:
+            raise UsageError(f"TANDEM_MAX_DECOMPRESSED must be a positive number of bytes, "
+                             f"not {raw!r}") from None
+        return cls(ratio=0.0, floor_bytes=n, max_bytes=n)
+
+
+class DecompressionLimit(Exception):
+    """Raised by _Capped past the limit; _read returns it like a damaged stream's error."""
+
+
+class _Capped:
+    """A decompressed stream that ends at ``cap`` bytes: one probe byte past the cap tells
+    a log that is exactly that long from one that would go on."""
+
+    def __init__(self, stream: IO[bytes], cap: int, note: str):
+        self._s, self.left, self.cap, self._note = stream, cap, cap, note
+
+    def read1(self, n: int = -1) -> bytes:
+        if self.left <= 0:
+            if self._s.read1(1):  # type: ignore[attr-defined]
+                raise DecompressionLimit(
+                    f"decompressed size limit reached: stopped after {self.cap} bytes "
+                    f"({self._note}); the rest was not read")
+            return b""
+        piece: bytes = self._s.read1(  # type: ignore[attr-defined]
+            self.left if n < 0 else min(n, self.left))
+        self.left -= len(piece)
+        return piece
+
+    def __enter__(self) -> _Capped:
+        return self
+
+    def __exit__(self, *exc: object) -> None:
+        self._s.close()
+
+
 @dataclass
 class IngestReport:
     ingested: list[dict[str, Any]] = field(default_factory=list)
     skipped: list[dict[str, Any]] = field(default_factory=list)
     rejected: list[dict[str, Any]] = field(default_factory=list)
+    # Inputs not stored because of an internal error (ReconciliationError): not registered,
+    # so a rerun retries them; exit code 1.
+    failed: list[dict[str, Any]] = field(default_factory=list)
 
     @property
     def problems(self) -> list[str]:
@@ -49,14 +126,19 @@ class IngestReport:
         out = [f"{r['path']}: rejected: {r['reason']}" for r in self.rejected]
         out += [f"{r['path']}: partial: {r['error']}" for r in self.ingested
                 if r.get("status") == "partial"]
+        out += [f"{r['path']}: failed (internal error, not stored): {r['reason']}"
+                for r in self.failed]
         return out
 
     @property
     def exit_code(self) -> int:
-        return 3 if self.problems else 0
+        return 1 if self.failed else 3 if self.problems else 0
 
     def to_json(self) -> dict[str, Any]:
-        return {"ingested": self.ingested, "skipped": self.skipped, "rejected": self.rejected}
+        out = {"ingested": self.ingested, "skipped": self.skipped, "rejected": self.rejected}
+        if self.failed:  # only then: the contract's three keys stay as they were
+            out["failed"] = self.failed
+        return out
 
 
 def find_inputs(paths: Iterable[str | os.PathLike[str]]) -> tuple[list[Path], list[dict]]:
@@ -143,13 +225,16 @@ def open_input(path: Path, raw: IO[bytes] | None = None) -> tuple[IO[bytes], str
 
 
 def ingest(store: Store, paths: Iterable[str | os.PathLike[str]], workers: int | None = None,
-           progress: Callable[[int, int, str], None] | None = None) -> IngestReport:
-    """Store every new log under ``paths``; see IngestReport for what came of each."""
+           progress: Callable[[int, int, str], None] | None = None,
+           limits: InputLimits | None = None) -> IngestReport:
+    """Store every new log under ``paths``; see IngestReport for what came of each.
+    ``limits``: default InputLimits.from_env()."""
+    limits = limits or InputLimits.from_env()
     files, missing = find_inputs(paths)
     report = IngestReport(rejected=list(missing))
     with store.writer():
         todo = _new_files(store, files, report)
-        for i, (entry, staged_root) in enumerate(_decode_all(store, todo, workers)):
+        for i, (entry, staged_root) in enumerate(_decode_all(store, todo, workers, limits)):
             _commit(store, entry, staged_root, report)
             if progress:
                 progress(i + 1, len(todo), entry["path"])
@@ -190,16 +275,34 @@ def _new_files(store: Store, files: list[Path],
     return todo
 
 
-def _decode_all(store: Store, todo: list[tuple[Path, str | None]], workers: int | None):
+def _decode_all(store: Store, todo: list[tuple[Path, str | None]], workers: int | None,
+                limits: InputLimits):
     n = workers if workers is not None else _default_workers(todo)
     if n <= 1 or len(todo) <= 1:
         for p, digest in todo:
-            yield decode_to_staging(str(store.path), str(p), digest)
+            yield decode_to_staging(str(store.path), str(p), digest, limits)
         return
-    with ProcessPoolExecutor(max_workers=n, initializer=keep_pandas_out) as pool:
-        futures = [pool.submit(decode_to_staging, str(store.path), str(p), d) for p, d in todo]
+    with ProcessPoolExecutor(max_workers=n, initializer=_worker_start,
+                             initargs=(os.getpid(),)) as pool:
+        futures = [pool.submit(decode_to_staging, str(store.path), str(p), d, limits)
+                   for p, d in todo]
         for fut in futures:
             yield fut.result()
+
+
+def _worker_start(parent: int) -> None:
+    """A pool worker dies with the ingest that started it: after a kill -9 of the parent,
+    idle workers would otherwise wait on their queue forever (Linux: PR_SET_PDEATHSIG)."""
+    keep_pandas_out()
+    if sys.platform.startswith("linux"):
+        import ctypes
+
+        try:
+            ctypes.CDLL(None, use_errno=True).prctl(1, signal.SIGKILL)  # PR_SET_PDEATHSIG
+        except (OSError, AttributeError):  # no prctl: the workers may outlive a kill -9
+            return
+    if os.getppid() != parent:  # the parent died before the line above took effect
+        os._exit(1)
 
 
 def _default_workers(todo: list[tuple[Path, str | None]]) -> int:
@@ -217,6 +320,9 @@ def _commit(store: Store, entry: dict[str, Any], staged_root: str | None,
         report.skipped.append({"path": entry["path"], "reason":
                                f"same content as {known['path']} ({known['file_id']})"})
         return
+    if entry["status"] == "failed":  # not registered: the next run tries it again
+        report.failed.append({"path": entry["path"], "reason": entry["error"]})
+        return
     if entry["status"] == "rejected":
         store.register_only(entry)
         report.rejected.append({"path": entry["path"], "reason": entry["error"]})
@@ -230,11 +336,11 @@ def _commit(store: Store, entry: dict[str, Any], staged_root: str | None,
     report.ingested.append(item)
 
 
-def decode_to_staging(store_path: str, path: str,
-                      digest: str | None) -> tuple[dict, str | None]:
+def decode_to_staging(store_path: str, path: str, digest: str | None,
+                      limits: InputLimits | None = None) -> tuple[dict, str | None]:
     """Decode one log into the store's staging area (runs in a worker process too).
     ``digest`` None: hash the file while decoding it. Returns its registry entry and the
-    staging folder (None when rejected)."""
+    staging folder (None when rejected or failed)."""
     store = Store(store_path)
     p = Path(path)
     entry: dict[str, Any] = {
@@ -246,8 +352,13 @@ def decode_to_staging(store_path: str, path: str,
     hasher = HashingReader(p) if digest is None else None
     try:
         try:
-            entry.update(_decode_into(p, staged, hasher))
+            entry.update(_decode_into(p, staged, hasher, limits or InputLimits.from_env()))
             root: str | None = str(staged.root)
+        except ReconciliationError as e:
+            staged.discard()
+            entry.update(status="failed", error=_one_line(e), records=0, parts=0)
+            entry.setdefault("format", None)
+            root = None
         except TandemError as e:
             staged.discard()
             reason = _one_line(e).removeprefix(f"{path}: ")  # the report names the file
@@ -266,11 +377,20 @@ def decode_to_staging(store_path: str, path: str,
     return entry, root
 
 
-def _decode_into(p: Path, staged: Staged, raw: IO[bytes] | None = None) -> dict[str, Any]:
-    stream, compression = open_input(p, raw)
+def _decode_into(p: Path, staged: Staged, raw: IO[bytes] | None = None,
+                 limits: InputLimits | None = None) -> dict[str, Any]:
+    opened, compression = open_input(p, raw)
+    stream: Any = opened
+    if compression != "none":  # a bomb is cut at the limit, never fully expanded
+        limits = limits or InputLimits.from_env()
+        size = p.stat().st_size
+        stream = _Capped(opened, limits.max_decompressed(size),
+                         f"{compression} file of {size} bytes; {limits.describe()}; "
+                         f"TANDEM_MAX_DECOMPRESSED sets it")
     with stream:
         head, err = _read(stream, 65536)
-        if err is not None and head[2:4] != b"\x00\x0a":
+        if err is not None and head[2:4] != b"\x00\x0a" and \
+                not isinstance(err, DecompressionLimit):  # past the limit: see below
             raise InputError(f"cannot decompress ({compression}): {err}")
         if not head:
             raise InputError("empty file" if compression == "none" else
@@ -279,6 +399,8 @@ def _decode_into(p: Path, staged: Staged, raw: IO[bytes] | None = None) -> dict[
             info = _decode_stdf(head, stream, staged, err)
         elif _sniff_csv(head):
             rest, err = _read(stream, -1)
+            if isinstance(err, DecompressionLimit):  # a CSV is read whole: no partial CSV
+                raise InputError(f"timing CSV not stored: {err}")
             if err is not None:
                 raise InputError(f"cannot decompress ({compression}): damaged after "
                                  f"{len(head) + len(rest)} bytes: {err}")
@@ -291,7 +413,9 @@ def _decode_into(p: Path, staged: Staged, raw: IO[bytes] | None = None) -> dict[
     return info
 
 
-_STREAM_ERRORS = (OSError, EOFError, lzma.LZMAError, zstandard.ZstdError)
+# zlib.error is what a damaged DEFLATE block raises through GzipFile (not an OSError).
+_STREAM_ERRORS = (OSError, EOFError, zlib.error, lzma.LZMAError, zstandard.ZstdError,
+                  DecompressionLimit)
 
 
 def _read(stream: IO[bytes], n: int) -> tuple[bytes, BaseException | None]:
@@ -328,7 +452,9 @@ def _decode_stdf(head: bytes, stream: IO[bytes], staged: Staged,
             if not chunk:
                 break
             put(dec.feed(chunk))
-        if err is not None:
+        if isinstance(err, DecompressionLimit):
+            damage = str(err)
+        elif err is not None:
             damage = f"compressed stream damaged after {dec._base + len(dec._buf)} bytes: {err}"
         put(dec.close())
     except FormatError as e:
@@ -358,14 +484,23 @@ def _stdf_entry(dec: Decoder, staged: Staged, damage: str | None) -> dict[str, A
 
 
 def _reconcile(dec: Decoder, staged: Staged) -> None:
-    """Records read by type must equal rows stored (results of unfinished parts aside)."""
-    stored = sum(staged.rows.get(n.lower(), 0) for n in RESULT_RECORDS)
-    read = sum(dec.counts.get(n, 0) for n in RESULT_RECORDS)
-    if stored + dec.dropped_results != read:
-        raise AssertionError(f"reconciliation failed: read {read} result records, stored "
-                             f"{stored}, dropped {dec.dropped_results}")
-    if dec.counts.get("PRR", 0) != staged.rows.get("parts", 0):
-        raise AssertionError("reconciliation failed: PRR records and stored parts differ")
+    """Records read by type must equal rows stored: one row per record in its table
+    (PRR -> parts, BPS -> sections), results of unfinished parts aside (dropped, and
+    reported as such). A mismatch is a bug: ReconciliationError, the file is not stored."""
+    bad = []
+    for name, read in sorted(dec.counts.items()):
+        rec = BY_NAME.get(name)
+        if rec is None or name in ("PIR", "EPS"):  # unknown types, counters; no table
+            continue
+        table = {"PRR": "parts", "BPS": "sections"}.get(name, name.lower())
+        stored = staged.rows.get(table, 0)
+        dropped = dec.dropped.get(name, 0)
+        if stored + dropped != read:
+            bad.append(f"read {read} {name} records, stored {stored} {table} rows"
+                       + (f" ({dropped} dropped with unfinished parts)" if dropped else ""))
+    if bad:
+        raise ReconciliationError("reconciliation failed: " + "; ".join(bad)
+                                  + "; the file was not stored")
 
 
 def _sniff_csv(head: bytes) -> bool:
@@ -380,6 +515,10 @@ def _decode_csv(data: bytes, path: str, staged: Staged) -> dict[str, Any]:
     log = read_timing_csv(data, path)
     staged.write("timing_csv", log.table)
     t = log.table
+    if staged.rows.get("timing_csv", 0) != t.num_rows:
+        raise ReconciliationError(f"reconciliation failed: read {t.num_rows} timing CSV rows, "
+                                  f"stored {staged.rows.get('timing_csv', 0)}; the file was "
+                                  f"not stored")
     parts = len(set(zip(t.column("lot_id").to_pylist(), t.column("touchdown").to_pylist(),
                         t.column("site").to_pylist(), t.column("part_id").to_pylist(),
                         strict=True)))

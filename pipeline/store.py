@@ -24,6 +24,7 @@ import queue
 import shutil
 import threading
 import time
+import uuid
 from collections.abc import Iterator
 from contextlib import contextmanager
 from pathlib import Path
@@ -45,8 +46,24 @@ SCHEMA_PART = "file_id=_schema"
 COMMITTED = "status in ('ok', 'partial')"
 
 
+def _lock_timeout() -> float:
+    raw = os.environ.get("TANDEM_LOCK_TIMEOUT", "").strip()
+    if not raw:
+        return 600.0
+    try:
+        value = float(raw)
+        if not value >= 0:
+            raise ValueError
+    except ValueError:
+        raise UsageError(f"TANDEM_LOCK_TIMEOUT must be a number of seconds (0 or more), "
+                         f"not {raw!r}") from None
+    return value
+
+
 def _write_parquet(table: pa.Table, path: Path) -> None:
-    tmp = path.with_name(path.name + ".tmp")
+    # A temporary name of its own: two processes creating one store at once both write
+    # the same schema files (outside the lock), and must not rename each other's.
+    tmp = path.with_name(f"{path.name}.{os.getpid()}.{uuid.uuid4().hex[:8]}.tmp")
     pq.write_table(table, tmp, compression="zstd")
     os.replace(tmp, path)
 
@@ -151,14 +168,21 @@ def _conform(table: pa.Table, schema: pa.Schema) -> pa.Table:
 class Store:
     """A folder of Parquet tables with a DuckDB catalog. ``Store(path)`` creates it."""
 
-    def __init__(self, path: str | os.PathLike[str], lock_timeout: float = 600.0):
+    def __init__(self, path: str | os.PathLike[str], lock_timeout: float | None = None):
         self.path = Path(path)
-        self.lock_timeout = lock_timeout
+        # None: TANDEM_LOCK_TIMEOUT (seconds) when set, else 600 s.
+        self.lock_timeout = _lock_timeout() if lock_timeout is None else lock_timeout
+        self._writing = False  # this object holds the lock: writer() is re-entrant
         self._known: dict[str, dict[str, Any]] | None = None
         self.catalog_warning: str | None = None
         if self.path.exists() and not self.path.is_dir():
             raise UsageError(f"{self.path}: exists and is not a folder (--store takes a "
                              f"folder; it is created when missing)")
+        if "," in str(self.path.resolve()):
+            # DuckDB's file_search_path (how the views find the tables) is a comma-separated
+            # list with no escape: such a store would open with every view empty or broken.
+            raise UsageError(f"{self.path}: a store's path may not contain a comma (DuckDB "
+                             f"reads it as a list of folders); choose another folder")
         (self.path / "tables").mkdir(parents=True, exist_ok=True)
         self._ensure_schema_files()
 
@@ -171,7 +195,11 @@ class Store:
 
     @contextmanager
     def writer(self) -> Iterator[Store]:
-        """Hold the store's write lock (waits up to ``lock_timeout`` seconds)."""
+        """Hold the store's write lock (waits up to ``lock_timeout`` seconds). Re-entrant
+        on one Store object: a nightly run holds it across ingest and the derived tables."""
+        if self._writing:
+            yield self
+            return
         fd = os.open(self.path / ".lock", os.O_RDWR | os.O_CREAT, 0o644)
         deadline = time.monotonic() + self.lock_timeout
         try:
@@ -181,9 +209,13 @@ class Store:
                     break
                 except BlockingIOError:
                     if time.monotonic() >= deadline:
+                        holder = os.pread(fd, 32, 0).decode("ascii", "replace").strip()
                         raise StoreError(
-                            f"{self.path}: another writer holds the store lock; waited "
-                            f"{self.lock_timeout:g} s (try again when it finishes)") from None
+                            f"{self.path}: another writer holds the store lock"
+                            + (f" (pid {holder})" if holder.isdigit() else "")
+                            + f"; waited {self.lock_timeout:g} s. Try again when it "
+                            f"finishes, or wait longer (TANDEM_LOCK_TIMEOUT=seconds)"
+                        ) from None
                     time.sleep(0.1)
             os.ftruncate(fd, 0)
             os.write(fd, f"{os.getpid()}\n".encode())
@@ -193,16 +225,20 @@ class Store:
             # alongside the work instead of after it.
             catalog = threading.Thread(target=self._write_catalog_quietly, daemon=True)
             catalog.start()
+            self._writing = True
             try:
                 yield self
             finally:
+                self._writing = False
                 catalog.join()
         finally:
             fcntl.flock(fd, fcntl.LOCK_UN)
             os.close(fd)
 
     def stage(self, file_id: str) -> Staged:
-        root = self.path / "staging" / file_id
+        # A folder of its own per attempt: a worker orphaned by a killed run that is still
+        # writing can never write into the next run's staging of the same log.
+        root = self.path / "staging" / f"{file_id}.{os.getpid()}.{uuid.uuid4().hex[:8]}"
         shutil.rmtree(root, ignore_errors=True)
         root.mkdir(parents=True)
         return Staged(file_id, root)
@@ -235,8 +271,14 @@ class Store:
                                             "status": entry.get("status"), "path": entry["path"]}
 
     def _recover(self) -> None:
-        """Remove what a crashed writer left: staging folders and unregistered rows."""
+        """Remove what a crashed writer left: staging folders, unregistered rows, and
+        half-written registry entries and catalogs (``*.tmp``, never read). Only files
+        that are written under the lock: schema files and derived tables are written
+        without it, so their temporary files may belong to a live process."""
         shutil.rmtree(self.path / "staging", ignore_errors=True)
+        for tmp in [*self.path.glob("catalog.duckdb.*.tmp*"),
+                    *(self.path / "tables" / "files").glob("file_id=[!_]*/*.tmp")]:
+            tmp.unlink(missing_ok=True)
         registered = set(self.registry().column("file_id").to_pylist())
         for table_dir in (self.path / "tables").iterdir():
             if not table_dir.is_dir() or table_dir.name == "files":
@@ -349,14 +391,22 @@ class Store:
         """(Re)write catalog.duckdb when it does not hold this release's views. Written
         aside and renamed into place, so a reader that has the old one open keeps it."""
         target = self.path / "catalog.duckdb"
-        probe = self._open_catalog()
-        if probe is not None:
-            probe.close()
+        if target.exists():
+            probe = self._open_catalog()
+            if probe is not None:
+                probe.close()
+                return
+        tmp = self.path / f"catalog.duckdb.{os.getpid()}.tmp"
+        tmp.unlink(missing_ok=True)
+        cached = _catalog_cache()
+        if cached is not None and cached.exists():
+            # The views name only relative paths, so every store of one release has the
+            # same catalog: copy it rather than have DuckDB bind ~50 views again (~1 s).
+            shutil.copyfile(cached, tmp)
+            os.replace(tmp, target)
             return
         import duckdb
 
-        tmp = self.path / f"catalog.duckdb.{os.getpid()}.tmp"
-        tmp.unlink(missing_ok=True)
         con = duckdb.connect(str(tmp))
         try:
             con.execute(f"set file_search_path = '{_sql_str(str(self.path))}'")
@@ -367,6 +417,27 @@ class Store:
         finally:
             con.close()
         os.replace(tmp, target)
+        _remember_catalog(target, cached)
+
+
+def _catalog_cache() -> Path | None:
+    """Where this release's catalog is kept between stores (None: no cache folder)."""
+    base = os.environ.get("XDG_CACHE_HOME") or os.path.join(os.path.expanduser("~"), ".cache")
+    if not base or base.startswith("~"):
+        return None
+    return Path(base) / "tandem" / f"catalog-{catalog_version().replace(':', '-')}.duckdb"
+
+
+def _remember_catalog(built: Path, cached: Path | None) -> None:
+    if cached is None:
+        return
+    try:
+        cached.parent.mkdir(parents=True, exist_ok=True)
+        tmp = cached.with_name(f"{cached.name}.{os.getpid()}.tmp")
+        shutil.copyfile(built, tmp)
+        os.replace(tmp, cached)
+    except OSError:
+        pass  # a cache only: the next store builds its catalog again
 
 
 def to_frame(result: duckdb.DuckDBPyRelation | None) -> pl.DataFrame:

@@ -702,12 +702,14 @@ def test_section_nesting_up_to_the_limit_is_fine(feed: str) -> None:
 
 
 @pytest.mark.parametrize("feed", ["whole", "bytewise-batch64"])
-def test_section_nesting_beyond_the_limit_is_a_format_error(feed: str) -> None:
-    # What the decoder does: raise FormatError (naming the limit and the BPS record) out of
-    # feed/close, rather than record damage and carry on.
+def test_section_nesting_beyond_the_limit_is_damage(feed: str) -> None:
+    # Damage, not an exception: decoding stops at the BPS that goes too deep (naming the
+    # limit and the record) and keeps every record before it.
     script = _one_part([("BPS", {"SEQ_NAME": f"s{i}"}) for i in range(4)])
-    with pytest.raises(FormatError, match=r"nested deeper than 3 \(BPS at record 5\)"):
-        run(encode(script), feed, limits=Limits(max_section_depth=3))
+    dec, t = run(encode(script), feed, limits=Limits(max_section_depth=3))
+    assert dec.damage is not None
+    assert "nested deeper than 3 (BPS at record 5," in dec.damage, dec.damage
+    assert dec.records == 5 and rows(t, "sections", "depth") == [0, 1, 2]
 
 
 # -- 5. touchdowns (DESIGN.md, attribution rule 2) ---------------------------------------

@@ -20,7 +20,7 @@ import pyarrow as pa
 import pyarrow.compute as pc
 
 from ..errors import FormatError
-from .codec import detect_endian
+from .codec import decode_record, detect_endian
 from .columnar import RUN_PAD, decode_columns
 from .records import BY_NAME, DEFAULTED, RECORDS, Record
 from .scan import scan
@@ -79,6 +79,7 @@ class Decoder:
         self.counts: Counter[str] = Counter()
         self.damage: str | None = None
         self.dropped_results = 0
+        self.dropped: Counter[str] = Counter()  # results of unfinished parts, by record type
         self._buf = bytearray()
         self._base = 0  # file offset of _buf[0]
         self._rec = 0  # records consumed so far
@@ -106,7 +107,9 @@ class Decoder:
                            f"last complete record at byte {self._base}")
         for name in RESULT_RECORDS:
             held = self._held[name]
-            self.dropped_results += sum(t.num_rows for t in held)
+            n = sum(t.num_rows for t in held)
+            self.dropped[name] += n
+            self.dropped_results += n
             self._held[name] = []
         self.unfinished_parts = len(self._s.open_parts) + self._s.abandoned
         out.extend(self._section_table())
@@ -125,11 +128,12 @@ class Decoder:
                 raise FormatError("too short to be STDF (no complete FAR record)")
             self.endian = detect_endian(bytes(self._buf[:6]))
         offs, lens, typ, sub, end = scan(self._buf, 0, self.endian == ">")
-        bad = np.flatnonzero(~np.isin(typ, list(VALID_TYP)))
-        if bad.size:
-            k = int(bad[0])
-            self.damage = (f"record boundaries lost: REC_TYP {int(typ[k])} is not an STDF V4 "
-                           f"record type, at byte {self._base + int(offs[k])}")
+        stop = self._first_damage(offs, lens, typ, sub)
+        if stop is not None:
+            # Damage at record k: decode the records before it, record why, and stop. Found
+            # before any record of the batch is decoded, so the batch's earlier records are
+            # kept rather than lost with an exception.
+            k, self.damage = stop
             offs, lens, typ, sub = offs[:k], lens[:k], typ[:k], sub[:k]
             end = int(offs[k - 1]) + 4 + int(lens[k - 1]) if k else 0
             self._stopped = True
@@ -143,6 +147,66 @@ class Decoder:
         out = self._decode_batch(chunk, offs, lens, typ.astype(np.int64) * 256 + sub, first_rec)
         self._base += end
         return out
+
+    def _first_damage(self, offs: np.ndarray, lens: np.ndarray, typ: np.ndarray,
+                      sub: np.ndarray) -> tuple[int, str] | None:
+        """The first record of the batch that decoding cannot go past, and why: a REC_TYP
+        the standard does not define (the boundaries are lost), a BPS nested deeper than
+        ``Limits.max_section_depth``, or a GDR with a V*n type code STDF V4 does not
+        define. Each check looks only at the records before the previous one's stop."""
+        found = None
+        k = len(offs)
+        bad = np.flatnonzero(~np.isin(typ, list(VALID_TYP)))
+        if bad.size:
+            k = int(bad[0])
+            found = (k, f"record boundaries lost: REC_TYP {int(typ[k])} is not an STDF V4 "
+                        f"record type, at byte {self._base + int(offs[k])}")
+        for check in (self._too_deep, self._bad_gdr):
+            got = check(offs[:k], lens[:k], typ[:k], sub[:k])
+            if got is not None:
+                k, why = got
+                found = (k, f"{why} ({self._name_of(typ[k], sub[k])} at record "
+                            f"{self._rec + k}, byte {self._base + int(offs[k])}): decoding "
+                            f"stopped there")
+        return found
+
+    @staticmethod
+    def _name_of(typ: int, sub: int) -> str:
+        return RECORDS[(int(typ), int(sub))].name
+
+    def _too_deep(self, offs: np.ndarray, lens: np.ndarray, typ: np.ndarray,
+                  sub: np.ndarray) -> tuple[int, str] | None:
+        """The BPS that would nest sections deeper than the limit (mirrors _begin_section
+        and _end_section: an EPS with no section open is ignored)."""
+        bps, eps = BY_NAME["BPS"], BY_NAME["EPS"]
+        step = ((typ == bps.typ) & (sub == bps.sub)).astype(np.int64)
+        step -= (typ == eps.typ) & (sub == eps.sub)
+        at = np.flatnonzero(step)
+        depth = len(self._s.stack) + np.cumsum(step[at])  # depth after each BPS/EPS
+        limit = self.limits.max_section_depth
+        if not at.size or (depth.min() >= 0 and depth.max() <= limit):
+            return None  # the usual case, decided without a loop
+        d = len(self._s.stack)
+        for i in at:
+            if step[i] < 0:
+                d = max(d - 1, 0)
+            elif d >= limit:
+                return int(i), f"program sections nested deeper than {limit}"
+            else:
+                d += 1
+        return None
+
+    def _bad_gdr(self, offs: np.ndarray, lens: np.ndarray, typ: np.ndarray,
+                 sub: np.ndarray) -> tuple[int, str] | None:
+        """The first GDR whose V*n items use a type code the standard does not define."""
+        gdr = BY_NAME["GDR"]
+        for i in np.flatnonzero((typ == gdr.typ) & (sub == gdr.sub)):
+            o, n = int(offs[i]) + 4, int(lens[i])
+            try:
+                decode_record(gdr, bytes(self._buf[o:o + n]), self.endian or "<")
+            except FormatError as e:
+                return int(i), str(e)
+        return None
 
     def _decode_batch(self, buf: np.ndarray, offs: np.ndarray, lens: np.ndarray,
                       keys: np.ndarray, first_rec: int) -> list[tuple[str, pa.Table]]:
@@ -252,9 +316,8 @@ class Decoder:
 
     def _begin_section(self, buf: np.ndarray, o: int, n: int, rec: int, tl: _Timeline) -> None:
         s = self._s
-        if len(s.stack) >= self.limits.max_section_depth:
-            raise FormatError(f"program sections nested deeper than "
-                              f"{self.limits.max_section_depth} (BPS at record {rec})")
+        # _first_damage stops the batch before a BPS that would nest deeper than the limit.
+        assert len(s.stack) < self.limits.max_section_depth
         ln = int(buf[o]) if n >= 1 else 0
         name = buf[o + 1:o + 1 + min(ln, n - 1)].tobytes().decode("latin-1") if n else ""
         sid = len(s.sections)
