@@ -269,3 +269,14 @@ def test_python_m_pipeline_help() -> None:
     assert done.returncode == 0, done.stderr
     assert done.stdout.startswith("usage: tandem") and "ingest" in done.stdout
     assert done.stderr == ""
+
+
+def test_every_command_is_documented_in_the_readme() -> None:
+    """Docs that cannot drift (STYLE 15): each registered command appears in README.md."""
+    from pathlib import Path
+
+    from pipeline.cli import COMMANDS
+
+    readme = (Path(__file__).parent.parent / "README.md").read_text(encoding="utf-8")
+    missing = [name for name in COMMANDS if f"tandem {name}" not in readme]
+    assert COMMANDS and not missing, f"README.md does not mention: {missing}"
