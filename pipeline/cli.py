@@ -174,9 +174,17 @@ from . import cli_nightly, cli_plan, cli_report  # noqa: E402,F401
 
 # -- formatting -------------------------------------------------------------------------
 def format_frame(df: Any, fmt: str) -> str:
-    """A polars DataFrame as an aligned text table, CSV or a JSON array of objects."""
+    """A polars DataFrame as an aligned text table, CSV or a JSON array of objects. In
+    CSV, text that a spreadsheet would run as a formula gets a leading single quote."""
+    import polars as pl
+
     if fmt == "csv":
-        return str(df.write_csv())
+        from .report.text import csv_cell  # one rule for every CSV Tandem writes
+
+        text = [c for c, t in zip(df.columns, df.dtypes, strict=True) if t == pl.String]
+        safe = df.with_columns(pl.col(c).map_elements(csv_cell, return_dtype=pl.String)
+                               for c in text) if text else df
+        return str(safe.write_csv())
     if fmt == "json":
         return json.dumps(df.to_dicts(), default=str, indent=1) + "\n"
     cols = df.columns

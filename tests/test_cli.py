@@ -280,3 +280,16 @@ def test_every_command_is_documented_in_the_readme() -> None:
     readme = (Path(__file__).parent.parent / "README.md").read_text(encoding="utf-8")
     missing = [name for name in COMMANDS if f"tandem {name}" not in readme]
     assert COMMANDS and not missing, f"README.md does not mention: {missing}"
+
+
+def test_sql_csv_neutralises_spreadsheet_formulas(cli, tmp_path) -> None:  # type: ignore[no-untyped-def]
+    """Text from logs must not run as a formula when a CSV export is opened (OWASP's
+    CSV-injection advice, from memory: prefix = + - @ tab CR with a single quote)."""
+    import csv
+    import io
+
+    res = cli("sql", "--store", tmp_path / "s", "--format", "csv",
+              "select '=1+1' as a, '-x' as b, 'ok' as c, -3 as n")
+    assert res.code == 0, res.err
+    rows = list(csv.reader(io.StringIO(res.out)))
+    assert rows == [["a", "b", "c", "n"], ["'=1+1", "'-x", "ok", "-3"]]
