@@ -85,7 +85,6 @@ class Decoder:
         self._rec = 0  # records consumed so far
         self._s = _Structure()
         self._held: dict[str, list[pa.Table]] = {n: [] for n in RESULT_RECORDS}
-        self._first: dict[str, dict[int, dict]] = {}
         self._defaults: dict[str, pa.Table] = {}
         self._stopped = False
 
