@@ -5,7 +5,7 @@ VENV   := .venv
 PY     := $(VENV)/bin/python
 STAMP  := $(VENV)/.installed
 
-.PHONY: install demo test bench fuzz lint golden clean
+.PHONY: install demo test bench bench-store fuzz lint golden clean
 
 $(STAMP): pyproject.toml
 	@test -x $(PY) || $(PYTHON) -m venv $(VENV)
@@ -23,6 +23,9 @@ test: $(STAMP)
 
 bench: $(STAMP)
 	$(PY) bench/bench_ingest.py
+
+bench-store: $(STAMP)
+	$(PY) bench/bench_store.py
 
 fuzz: $(STAMP)
 	$(PY) -m pytest -q -m fuzz

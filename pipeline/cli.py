@@ -32,9 +32,21 @@ class _Parser(argparse.ArgumentParser):
         raise UsageError(f"{self.prog}: {message}")
 
 
-def _store_opt(p: argparse.ArgumentParser) -> None:
+def store_opt(p: argparse.ArgumentParser, creates: bool = False) -> None:
+    """--store DIR. Commands that only read refuse a folder that holds no store."""
     p.add_argument("--store", required=True, metavar="DIR",
-                   help="the store folder (created when missing)")
+                   help="the store folder (created when missing)" if creates else
+                   "the store folder (made by tandem ingest)")
+
+
+def open_store(path: str) -> Any:
+    """The store at ``path`` for a command that reads it: UsageError (exit 2, one line)
+    when no store is there, and nothing is created."""
+    from .store import Store
+
+    store = Store(path)
+    store.require()
+    return store
 
 
 def _format_opt(p: argparse.ArgumentParser) -> None:
@@ -47,7 +59,7 @@ def _ingest_options(p: argparse.ArgumentParser) -> None:
     p.add_argument("paths", nargs="+", metavar="PATH",
                    help="STDF V4 logs (raw, .gz, .bz2, .xz, .zst) or timing CSVs; folders "
                         "are searched recursively; the format is decided by content")
-    _store_opt(p)
+    store_opt(p, creates=True)
     p.add_argument("--workers", type=int, default=None, metavar="N",
                    help="decode N files at once in worker processes (default: automatic)")
     p.add_argument("--json", action="store_true", help="print the outcome as JSON")
@@ -81,7 +93,7 @@ register("ingest", "read datalogs into a store",
 
 # -- sql --------------------------------------------------------------------------------
 def _sql_options(p: argparse.ArgumentParser) -> None:
-    _store_opt(p)
+    store_opt(p)
     _format_opt(p)
     p.add_argument("query", metavar="QUERY", help="one SQL query over the catalog's views")
 
@@ -89,14 +101,15 @@ def _sql_options(p: argparse.ArgumentParser) -> None:
 def _sql(args: argparse.Namespace) -> int:
     import duckdb
 
-    from .store import Store
+    from .render import format_rows, is_numeric_type
 
-    store = Store(args.store)
+    store = open_store(args.store)
     try:
-        df = store.sql(args.query)
+        columns, types, rows = store.rows(args.query)
     except duckdb.Error as e:
         raise UsageError(f"query failed: {' '.join(str(e).split())}") from None
-    print(format_frame(df, args.format), end="")
+    print(format_rows(columns, [is_numeric_type(t) for t in types], rows, args.format,
+                      [t.upper() == "VARCHAR" for t in types]), end="")
     return 0
 
 
@@ -111,30 +124,33 @@ def _lot_opt(p: argparse.ArgumentParser) -> None:
 
 
 def _times_options(p: argparse.ArgumentParser) -> None:
-    _store_opt(p)
+    store_opt(p)
     _lot_opt(p)
     p.add_argument("--blocks", metavar="FILE",
                    help="block map whose test-number/name rules assign tests that no "
-                        "section or TSR places (kept in the store for later queries)")
+                        "section or TSR places (kept in the store: the lots they change "
+                        "are derived again at once)")
     _format_opt(p)
 
 
 def _times(args: argparse.Namespace) -> int:
     from . import timing
-    from .store import Store
 
-    store = Store(args.store)
+    store = open_store(args.store)
     if args.blocks:
         from .blockmap import load_block_map
+        from .derivation import set_block_rules
 
-        timing.save_block_rules(store, load_block_map(args.blocks))
-    problems = timing.refresh_estimates(store)
+        changed = set_block_rules(store, load_block_map(args.blocks))
+        print(f"block rules from {args.blocks}: {len(changed)} lot(s) derived again"
+              + (f" ({', '.join(changed[:5])}{' ...' if len(changed) > 5 else ''})"
+                 if changed else ""), file=sys.stderr)
     table = timing.block_table(store, args.lot)
     if args.format != "table":
         print(format_frame(table, args.format), end="")
     else:
         print(timing.render_times(store, table, args.lot))
-    for line in problems + timing.warnings(store, args.lot):
+    for line in timing.warnings(store, args.lot):
         print(f"warning: {line}", file=sys.stderr)
     return 0
 
@@ -144,17 +160,15 @@ register("times", "where the seconds go: block times per lot and site, ranked",
 
 
 def _sites_options(p: argparse.ArgumentParser) -> None:
-    _store_opt(p)
+    store_opt(p)
     _lot_opt(p)
     _format_opt(p)
 
 
 def _sites(args: argparse.Namespace) -> int:
     from . import timing
-    from .store import Store
 
-    store = Store(args.store)
-    timing.refresh_estimates(store)
+    store = open_store(args.store)
     summaries = timing.site_summaries(store, args.lot)
     if args.format != "table":
         print(format_frame(timing.sites_frame(summaries), args.format), end="")
@@ -169,41 +183,14 @@ register("sites", "the multi-site view: touchdown time, MSE, imbalance, shared i
 
 # The commands of other areas live in their own modules and register themselves here on
 # import: cli_plan (plan, draft-map), cli_report (report, demo), cli_nightly (nightly).
-from . import cli_nightly, cli_plan, cli_report  # noqa: E402,F401
+from . import cli_nightly, cli_plan, cli_report, cli_store  # noqa: E402,F401
 
 
 # -- formatting -------------------------------------------------------------------------
 def format_frame(df: Any, fmt: str) -> str:
-    """A polars DataFrame as an aligned text table, CSV or a JSON array of objects. In
-    CSV, text that a spreadsheet would run as a formula gets a leading single quote."""
-    import polars as pl
+    from .render import format_frame as render
 
-    if fmt == "csv":
-        from .report.text import csv_cell  # one rule for every CSV Tandem writes
-
-        text = [c for c, t in zip(df.columns, df.dtypes, strict=True) if t == pl.String]
-        safe = df.with_columns(pl.col(c).map_elements(csv_cell, return_dtype=pl.String)
-                               for c in text) if text else df
-        return str(safe.write_csv())
-    if fmt == "json":
-        return json.dumps(df.to_dicts(), default=str, indent=1) + "\n"
-    cols = df.columns
-    rows = [["" if v is None else _cell(v) for v in r] for r in df.iter_rows()]
-    widths = [max([len(c)] + [len(r[i]) for r in rows]) for i, c in enumerate(cols)]
-    numeric = [df[c].dtype.is_numeric() for c in cols]
-
-    def line(vals: Sequence[str]) -> str:
-        return "  ".join(v.rjust(w) if n else v.ljust(w)
-                         for v, w, n in zip(vals, widths, numeric, strict=True)).rstrip()
-
-    out = [line(cols), line(["-" * w for w in widths])] + [line(r) for r in rows]
-    return "\n".join(out) + f"\n({len(rows)} row{'s' if len(rows) != 1 else ''})\n"
-
-
-def _cell(v: Any) -> str:
-    if isinstance(v, float):
-        return f"{v:.6g}"
-    return str(v).replace("\n", " ")
+    return render(df, fmt)
 
 
 # -- entry ------------------------------------------------------------------------------

@@ -5,7 +5,7 @@ from __future__ import annotations
 import argparse
 import sys
 
-from .cli import _store_opt, register
+from .cli import register, store_opt
 from .errors import UsageError
 
 
@@ -13,7 +13,7 @@ def _nightly_options(p: argparse.ArgumentParser) -> None:
     p.add_argument("--inbox", required=True, metavar="DIR",
                    help="folder of datalogs, searched recursively; what is stored already "
                         "is skipped (hashing only)")
-    _store_opt(p)
+    store_opt(p, creates=True)
     p.add_argument("--out", required=True, metavar="DIR",
                    help="where status.json and reports/<lot>/ (one report per lot touched) "
                         "are written")

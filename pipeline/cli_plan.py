@@ -6,7 +6,7 @@ import argparse
 import json
 from pathlib import Path
 
-from .cli import _store_opt, register
+from .cli import open_store, register, store_opt
 from .errors import UsageError
 
 
@@ -17,7 +17,7 @@ def _lot_opt(p: argparse.ArgumentParser, verb: str) -> None:
 
 # -- plan -------------------------------------------------------------------------------
 def _plan_options(p: argparse.ArgumentParser) -> None:
-    _store_opt(p)
+    store_opt(p)
     p.add_argument("--blocks", required=True, metavar="FILE",
                    help="the block map (TOML): resources, limits, blocks, what-ifs")
     _lot_opt(p, "plan")
@@ -33,12 +33,11 @@ def _plan(args: argparse.Namespace) -> int:
     from .blockmap import load_block_map
     from .plan import plan_lot
     from .plan.report import render
-    from .store import Store
 
     if not args.time_limit > 0:
         raise UsageError("--time-limit must be greater than 0 seconds")
     bm = load_block_map(args.blocks)
-    result = plan_lot(Store(args.store), bm, args.lot, args.percentile, args.time_limit)
+    result = plan_lot(open_store(args.store), bm, args.lot, args.percentile, args.time_limit)
     if args.json:
         print(json.dumps(result.to_json(), indent=2))
     else:
@@ -53,7 +52,7 @@ register("plan", "plan which serial blocks could run concurrently in one touchdo
 
 # -- draft-map --------------------------------------------------------------------------
 def _draft_options(p: argparse.ArgumentParser) -> None:
-    _store_opt(p)
+    store_opt(p)
     p.add_argument("--out", required=True, metavar="FILE", help="where to write the block map")
     _lot_opt(p, "draft from")
     p.add_argument("--force", action="store_true", help="overwrite FILE if it exists")
@@ -61,12 +60,11 @@ def _draft_options(p: argparse.ArgumentParser) -> None:
 
 def _draft(args: argparse.Namespace) -> int:
     from .plan.draft import draft_map
-    from .store import Store
 
     out = Path(args.out)
     if out.exists() and not args.force:
         raise UsageError(f"{out}: exists; choose another --out or add --force to overwrite it")
-    text, measured, uses = draft_map(Store(args.store), args.lot)
+    text, measured, uses = draft_map(open_store(args.store), args.lot)
     try:
         out.write_text(text, encoding="utf-8")
     except OSError as e:

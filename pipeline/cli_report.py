@@ -5,10 +5,8 @@ from __future__ import annotations
 import argparse
 import sys
 import time
-from pathlib import Path
 
-from .cli import register
-from .errors import UsageError
+from .cli import open_store, register, store_opt
 
 
 def tty_steps(step: str, done: int, total: int) -> None:
@@ -23,9 +21,7 @@ def tty_steps(step: str, done: int, total: int) -> None:
 
 # -- report -----------------------------------------------------------------------------
 def _report_options(p: argparse.ArgumentParser) -> None:
-    # Not cli._store_opt: that one creates a missing store, and a report reads one.
-    p.add_argument("--store", required=True, metavar="DIR",
-                   help="the store folder to report on (made by tandem ingest)")
+    store_opt(p)
     p.add_argument("--blocks", metavar="FILE",
                    help="the block map (TOML): with it the report holds the plan (before/after "
                         "touchdown, savings, candidates, projection); without it, attribution "
@@ -40,13 +36,10 @@ def _report_options(p: argparse.ArgumentParser) -> None:
 
 def _report(args: argparse.Namespace) -> int:
     from .report import build_report
-    from .store import Store
 
-    if not Path(args.store).is_dir():
-        raise UsageError(f"{args.store}: no store there (make one with tandem ingest "
-                         f"LOGS --store {args.store})")
+    store = open_store(args.store)
     t0 = time.perf_counter()
-    r = build_report(Store(args.store), args.out, blocks=args.blocks, lot=args.lot,
+    r = build_report(store, args.out, blocks=args.blocks, lot=args.lot,
                      progress=tty_steps)
     kind = "with the plan" if r.planned else "attribution only (no --blocks: no plan)"
     print(f"wrote {r.html} ({r.html_bytes / 1e6:.1f} MB, {len(r.charts) // 2} charts, "

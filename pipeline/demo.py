@@ -52,8 +52,6 @@ def run_demo(out: str, say: Callable[[str], None], progress: Progress | None = N
         f"({sum(r['records'] for r in report.ingested)} records, "
         f"{sum(r['parts'] for r in report.ingested)} parts).")
     step("block times", 0, 1)
-    for line in timing.refresh_estimates(store):
-        say(f"   note: {line}")
     top = timing.block_table(store, DEMO_LOT).head(3)
     say(f"2. Block times of lot {DEMO_LOT}: "
         + ", ".join(f"{b} {s:.1f} %" for b, s in zip(top["block"], top["share_pct"],

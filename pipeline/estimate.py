@@ -268,6 +268,8 @@ class Estimate:
     group_totals: dict[str, float]
     group_ci_ms: dict[str, tuple[float, float]]  # same keys: percentile interval
     warning: str | None  # one line naming each group, None when all are identifiable
+    findings: list[str]  # one sentence per group (same order as ``groups``)
+    group_kinds: list[str]  # per group: identical | dependent | absent
     n_parts: int
     residual_ms: float  # RMS of part total minus fitted total
     ci: float
@@ -311,6 +313,8 @@ def estimate_block_times(X: ArrayLike, y: ArrayLike, names: list[str], n_boot: i
         group_totals={k: float(point[s]) for k, s in keyed.items()},
         group_ci_ms={k: (float(lo[s]), float(hi[s])) for k, s in keyed.items()},
         warning=_warning(groups, labels, point, model.group_stat),
+        findings=_findings(groups, labels, point, model.group_stat),
+        group_kinds=[g.kind for g in groups],
         n_parts=A.shape[0], residual_ms=float(np.sqrt(np.mean(residual**2))),
         ci=ci, n_boot=n_boot)
 
@@ -518,9 +522,13 @@ def _check_options(n_boot: int, ci: float, shape: tuple[int, ...]) -> None:
 def _warning(groups: list[_Group], labels: list[str], point: Array,
              group_stat: list[int]) -> str | None:
     """One line naming each group the data cannot separate, None when there is none."""
-    parts = [_describe(g, labels, point[s] if s >= 0 else np.nan)
-             for g, s in zip(groups, group_stat, strict=True)]
-    return "; ".join(parts) or None
+    return "; ".join(_findings(groups, labels, point, group_stat)) or None
+
+
+def _findings(groups: list[_Group], labels: list[str], point: Array,
+              group_stat: list[int]) -> list[str]:
+    return [_describe(g, labels, point[s] if s >= 0 else np.nan)
+            for g, s in zip(groups, group_stat, strict=True)]
 
 
 def _describe(group: _Group, labels: list[str], total: float) -> str:

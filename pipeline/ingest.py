@@ -1,8 +1,11 @@
 """Ingest orchestration: find inputs, decide each one's format by content, decode it
-into the store's staging area, and commit it — one log at a time, atomically.
+into the store's staging area, derive its per-file tables, and commit it with its lot's
+refreshed aggregates — one log at a time, atomically.
 
 A bad log never stops the run: it is reported (``rejected``, or ``partial`` when the
-parts before the damage were kept) and the next one goes on.
+parts before the damage were kept) and the next one goes on. Decoding and the per-file
+derivation run in worker processes when there is enough to do; the per-lot derivation
+and the commit run here, one log after another, while the workers decode the next ones.
 """
 
 from __future__ import annotations
@@ -20,7 +23,7 @@ import signal
 import sys
 import uuid
 import zlib
-from collections.abc import Callable, Iterable
+from collections.abc import Callable, Iterable, Iterator
 from concurrent.futures import ProcessPoolExecutor
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -33,7 +36,10 @@ from ._lean import keep_pandas_out
 from .errors import FormatError, InputError, StoreError, TandemError, UsageError
 from .stdf.decoder import Decoder, Limits
 from .stdf.records import BY_NAME
-from .store import Staged, Store
+from .store import Store
+from .store.commit import Incoming, Runner, Share
+from .store.layout import STAGING
+from .store.staging import UNKNOWN_LOT, Staged
 
 READ_BYTES = 8 << 20
 MAGIC = [(b"\x1f\x8b", "gzip"), (b"BZh", "bzip2"), (b"\xfd7zXZ\x00", "xz"),
@@ -224,20 +230,35 @@ def open_input(path: Path, raw: IO[bytes] | None = None) -> tuple[IO[bytes], str
     return io.BufferedReader(raw, READ_BYTES), kind  # type: ignore[arg-type]
 
 
+@dataclass
+class Decoded:
+    """What a worker hands back for one log (paths relative to ``root``)."""
+
+    entry: dict[str, Any]
+    root: str | None                                   # its staging folder
+    shares: dict[str, dict[str, str]] = field(default_factory=dict)   # lot -> table -> dir
+    derived: dict[str, dict[str, str]] = field(default_factory=dict)  # lot -> model -> file
+
+
 def ingest(store: Store, paths: Iterable[str | os.PathLike[str]], workers: int | None = None,
            progress: Callable[[int, int, str], None] | None = None,
-           limits: InputLimits | None = None) -> IngestReport:
+           limits: InputLimits | None = None, runner: Runner | None = None) -> IngestReport:
     """Store every new log under ``paths``; see IngestReport for what came of each.
-    ``limits``: default InputLimits.from_env()."""
+    ``limits``: default InputLimits.from_env(). ``runner``: where the per-lot derivation
+    runs (default: this process)."""
+    from .derivation import local_runner
+
     limits = limits or InputLimits.from_env()
     files, missing = find_inputs(paths)
     report = IngestReport(rejected=list(missing))
     with store.writer():
         todo = _new_files(store, files, report)
-        for i, (entry, staged_root) in enumerate(_decode_all(store, todo, workers, limits)):
-            _commit(store, entry, staged_root, report)
+        rules = store.rules_path(store.snapshot().rules_sha)
+        lots = runner or local_runner()
+        for i, decoded in enumerate(_decode_all(store, todo, workers, limits, rules)):
+            _commit(store, decoded, report, lots)
             if progress:
-                progress(i + 1, len(todo), entry["path"])
+                progress(i + 1, len(todo), decoded.entry["path"])
     return report
 
 
@@ -276,15 +297,16 @@ def _new_files(store: Store, files: list[Path],
 
 
 def _decode_all(store: Store, todo: list[tuple[Path, str | None]], workers: int | None,
-                limits: InputLimits):
+                limits: InputLimits, rules: Path | None) -> Iterator[Decoded]:
     n = workers if workers is not None else _default_workers(todo)
+    rules_s = str(rules) if rules is not None else None
     if n <= 1 or len(todo) <= 1:
         for p, digest in todo:
-            yield decode_to_staging(str(store.path), str(p), digest, limits)
+            yield decode_to_staging(str(store.path), str(p), digest, limits, rules_s)
         return
     with ProcessPoolExecutor(max_workers=n, initializer=_worker_start,
                              initargs=(os.getpid(),)) as pool:
-        futures = [pool.submit(decode_to_staging, str(store.path), str(p), d, limits)
+        futures = [pool.submit(decode_to_staging, str(store.path), str(p), d, limits, rules_s)
                    for p, d in todo]
         for fut in futures:
             yield fut.result()
@@ -311,12 +333,12 @@ def _default_workers(todo: list[tuple[Path, str | None]]) -> int:
     return min(os.cpu_count() or 1, 4) if total > (256 << 20) else 1
 
 
-def _commit(store: Store, entry: dict[str, Any], staged_root: str | None,
-            report: IngestReport) -> None:
+def _commit(store: Store, decoded: Decoded, report: IngestReport, runner: Runner) -> None:
+    entry, root = decoded.entry, decoded.root
     known = store.known(entry["sha256"])
     if known is not None:  # hashed while decoding, and the same content is stored already
-        if staged_root:
-            shutil.rmtree(staged_root, ignore_errors=True)
+        if root:
+            shutil.rmtree(root, ignore_errors=True)
         report.skipped.append({"path": entry["path"], "reason":
                                f"same content as {known['path']} ({known['file_id']})"})
         return
@@ -324,31 +346,49 @@ def _commit(store: Store, entry: dict[str, Any], staged_root: str | None,
         report.failed.append({"path": entry["path"], "reason": entry["error"]})
         return
     if entry["status"] == "rejected":
-        store.register_only(entry)
+        store.commit([Incoming(_registry_fields(entry))], runner)
         report.rejected.append({"path": entry["path"], "reason": entry["error"]})
         return
-    assert staged_root is not None
-    staged = Staged(entry["file_id"], Path(staged_root))
-    store.commit(staged, entry)
+    assert root is not None
+    base = Path(root)
+    shares = [Share(lot, {t: base / d for t, d in tables.items()},
+                    {m: base / f for m, f in decoded.derived[lot].items()}
+                    if lot in decoded.derived else None)
+              for lot, tables in sorted(decoded.shares.items())]
+    store.commit([Incoming(_registry_fields(entry), shares, base)], runner)
     item = {k: entry[k] for k in ("path", "file_id", "format", "records", "parts", "status")}
     if entry["status"] == "partial":
         item["error"] = entry["error"]
     report.ingested.append(item)
 
 
+def _registry_fields(entry: dict[str, Any]) -> dict[str, Any]:
+    from .schemas import FILES
+
+    return {k: entry.get(k) for k in ("file_id", *FILES.names)}
+
+
+def _stage(store_path: str, name: str) -> Staged:
+    # A folder of its own per attempt: a worker orphaned by a killed run that is still
+    # writing can never write into the next run's staging of the same log.
+    root = Path(store_path) / STAGING / f"{name}.{os.getpid()}.{uuid.uuid4().hex[:8]}"
+    root.mkdir(parents=True)
+    return Staged(name, root)
+
+
 def decode_to_staging(store_path: str, path: str, digest: str | None,
-                      limits: InputLimits | None = None) -> tuple[dict, str | None]:
-    """Decode one log into the store's staging area (runs in a worker process too).
-    ``digest`` None: hash the file while decoding it. Returns its registry entry and the
-    staging folder (None when rejected or failed)."""
-    store = Store(store_path)
+                      limits: InputLimits | None = None,
+                      rules: str | None = None) -> Decoded:
+    """Decode one log into the store's staging area and derive its per-file tables there
+    (runs in a worker process too). ``digest`` None: hash the file while decoding it.
+    ``rules``: the store's block-map rules file, if any."""
     p = Path(path)
     entry: dict[str, Any] = {
         "path": path, "size_bytes": p.stat().st_size,
         "ingested_at": _dt.datetime.now().replace(microsecond=0),
         "tandem_version": __version__, "dropped_results": 0,
     }
-    staged = store.stage(digest[:16] if digest else f"new-{uuid.uuid4().hex}")
+    staged = _stage(store_path, digest[:16] if digest else f"new-{uuid.uuid4().hex}")
     hasher = HashingReader(p) if digest is None else None
     try:
         try:
@@ -372,9 +412,37 @@ def decode_to_staging(store_path: str, path: str, digest: str | None,
             hasher.release()
     assert digest is not None
     entry.update(sha256=digest, file_id=digest[:16])
-    if root is not None:
-        staged.close()
-    return entry, root
+    if root is None:
+        return Decoded(entry, None)
+    return _derive_staged(Path(store_path), staged, entry, rules)
+
+
+def _derive_staged(store_root: Path, staged: Staged, entry: dict[str, Any],
+                   rules: str | None) -> Decoded:
+    """Lay the staged tables out as the store does and derive the per-file models. A
+    failure here is a bug (exit 1): the log is not stored, and a rerun tries it again."""
+    from .store.derive import derive_file
+    from .store.layout import lot_key
+
+    out = Decoded(entry, str(staged.root))
+    try:
+        out.shares = staged.finish(entry["file_id"])
+        rules_table = None
+        if rules is not None:
+            import pyarrow.parquet as pq
+
+            rules_table = pq.read_table(rules)
+        for lot, tables in out.shares.items():
+            made = derive_file(store_root, entry["file_id"],
+                               {t: staged.root / d for t, d in tables.items()},
+                               staged.root / "derived" / lot_key(lot), rules_table)
+            out.derived[lot] = {m: str(f.relative_to(staged.root)) for m, f in made.items()}
+    except Exception as e:  # noqa: BLE001 - reported as this log's failure, not fatal
+        staged.discard()
+        entry.update(status="failed", error=f"deriving its tables failed: "
+                                            f"{type(e).__name__}: {_one_line(e)}")
+        return Decoded(entry, None)
+    return out
 
 
 def _decode_into(p: Path, staged: Staged, raw: IO[bytes] | None = None,
@@ -440,8 +508,13 @@ def _decode_stdf(head: bytes, stream: IO[bytes], staged: Staged,
                  err: BaseException | None = None) -> dict[str, Any]:
     dec = Decoder(Limits(batch_bytes=READ_BYTES))
     damage = None
+    lot_known = False
 
     def put(batches: list) -> None:
+        nonlocal lot_known
+        if batches and not lot_known:  # the MIR comes first: it names the lot
+            staged.lot = _mir_lot(batches)
+            lot_known = True
         for name, table in batches:
             staged.write(name, table)
 
@@ -462,6 +535,16 @@ def _decode_stdf(head: bytes, stream: IO[bytes], staged: Staged,
             raise
         damage = str(e)
     return _stdf_entry(dec, staged, damage)
+
+
+def _mir_lot(batches: list) -> str:
+    """The lot a log's rows are filed under: its MIR LOT_ID, else "unknown" (as the
+    parts view says)."""
+    for name, table in batches:
+        if name == "mir" and table.num_rows:
+            lot = table.column("lot_id")[0].as_py()
+            return lot if lot else UNKNOWN_LOT
+    return UNKNOWN_LOT
 
 
 def _stdf_entry(dec: Decoder, staged: Staged, damage: str | None) -> dict[str, Any]:
@@ -510,11 +593,14 @@ def _sniff_csv(head: bytes) -> bool:
 
 
 def _decode_csv(data: bytes, path: str, staged: Staged) -> dict[str, Any]:
+    import pyarrow.compute as pc
+
     from .csvlog import read_timing_csv
 
     log = read_timing_csv(data, path)
-    staged.write("timing_csv", log.table)
     t = log.table
+    for lot in sorted(set(t.column("lot_id").to_pylist())):  # one share per lot
+        staged.write("timing_csv", t.filter(pc.equal(t.column("lot_id"), lot)), lot=lot)
     if staged.rows.get("timing_csv", 0) != t.num_rows:
         raise ReconciliationError(f"reconciliation failed: read {t.num_rows} timing CSV rows, "
                                   f"stored {staged.rows.get('timing_csv', 0)}; the file was "

@@ -99,15 +99,18 @@ def _work(store: Store, inbox: Path, out: Path, blocks: str | None, bm: Any,
           workers: int | None, limits: InputLimits | None, reporter: Reporter,
           status: dict[str, Any], since: _dt.datetime) -> None:
     from . import timing
+    from .derivation import set_block_rules
 
+    # Rules first: the new logs are then derived with them, once.
+    rederived = set_block_rules(store, bm) if bm is not None else []
     report = ingest(store, inbox_files(inbox, [store.path, out]), workers=workers,
                     limits=limits)
     status.update(_ingest_summary(report))
-    if bm is not None:
-        timing.save_block_rules(store, bm)
-    warnings = [f"estimate: {w}" for w in timing.refresh_estimates(store)]
-    lots = lots_since(store, since, [r["file_id"] for r in report.ingested])
+    lots = sorted(set(lots_since(store, since, [r["file_id"] for r in report.ingested]))
+                  | set(rederived))
     status["lots"] = lots
+    status["rederived_lots"] = rederived
+    warnings = [f"estimate: {w}" for lot in lots for w in timing.warnings(store, lot)]
     status["drift"] = drift_flags(store, lots)
     reports, errors = _write_reports(store, out, lots, blocks, reporter, warnings)
     status.update(reports=reports, warnings=warnings, errors=errors)
@@ -181,10 +184,10 @@ def _ingest_summary(report: IngestReport) -> dict[str, Any]:
 def lots_since(store: Store, since: _dt.datetime, file_ids: Sequence[str] = ()) -> list[str]:
     """Lots of every file stored (ok or partial) at or after ``since``, and of these."""
     df = store.sql("""
-        select distinct l.lot_id from lots l join files f using (file_id)
-        where f.status in ('ok', 'partial')
-          and (f.ingested_at >= ? or list_contains(?::varchar[], f.file_id))
-        order by l.lot_id""", [since.replace(microsecond=0), list(file_ids)])
+        select distinct lot_id from raw_files
+        where status in ('ok', 'partial') and lot_id is not null
+          and (ingested_at >= ? or list_contains(?::varchar[], file_id))
+        order by lot_id""", [since.replace(microsecond=0), list(file_ids)])
     return [str(v) for v in df["lot_id"].to_list()]
 
 
@@ -198,7 +201,8 @@ def drift_flags(store: Store, lots: list[str]) -> list[dict[str, Any]]:
         if r["lot_id"] not in lots:
             continue
         base = r["baseline_ms"]
-        out.append({"lot_id": r["lot_id"], "block": r["block"], "method": r["method"],
+        out.append({"lot_id": r["lot_id"], "block": r["block"], "kind": r["kind"],
+                    "method": r["method"],
                     "mean_ms": round(r["mean_ms"], 3), "baseline_ms": round(base, 3),
                     "change_pct": round(100.0 * (r["mean_ms"] - base) / base, 2)
                     if base else None})

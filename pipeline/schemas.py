@@ -64,19 +64,28 @@ TIMING_CSV = pa.schema([
 ])
 
 
-# Tables Tandem derives from the logs (rewritten per lot by `tandem times`), and settings
-# the engineer gives it (the block map's assignment rules), stored beside the tables.
+# The outputs of the per-lot models computed in Python (pipeline/timing.py), written
+# beside the SQL models' outputs when a lot's logs change (pipeline/store/derive.py).
+# Their names are also in pipeline.store.models.PYTHON_MODELS (start-up needs no pyarrow).
 DERIVED: dict[str, pa.Schema] = {
     "block_estimates": pa.schema([
         ("lot_id", pa.large_string()), ("block", pa.large_string()), ("site", pa.int32()),
         ("parts", pa.int64()), ("mean_ms", pa.float64()), ("ci_low_ms", pa.float64()),
         ("ci_high_ms", pa.float64()), ("identifiable", pa.bool_()),
-        ("warning", pa.large_string()), ("file_ids", pa.large_string()),
-        ("computed_at", pa.timestamp("us")),
+        ("warning", pa.large_string()), ("group_blocks", pa.large_string()),
+        ("group_kind", pa.large_string()), ("group_ms", pa.float64()),
+        ("group_ci_low_ms", pa.float64()), ("group_ci_high_ms", pa.float64()),
     ]),
-    "block_rules": pa.schema([
-        ("priority", pa.int32()), ("block", pa.large_string()), ("kind", pa.large_string()),
-        ("lo", pa.int64()), ("hi", pa.int64()), ("pattern", pa.large_string()),
+    "timing_notes": pa.schema([
+        ("lot_id", pa.large_string()), ("kind", pa.large_string()),
+        ("blocks", pa.large_string()), ("sites", pa.large_string()),
+        ("message", pa.large_string()),
+    ]),
+    "site_summary": pa.schema([
+        ("lot_id", pa.large_string()), ("sites", pa.int32()), ("touchdowns", pa.int64()),
+        ("parts", pa.int64()), ("touchdown_ms", pa.float64()), ("one_site_ms", pa.float64()),
+        ("overhead_ms", pa.float64()), ("mse", pa.float64()), ("index_ms", pa.float64()),
+        ("serialized_blocks", pa.list_(pa.large_string())), ("method", pa.large_string()),
     ]),
 }
 

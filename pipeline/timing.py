@@ -1,116 +1,261 @@
 """Where the seconds go: block times per lot and site, the multi-site view, drift.
 
-The measured sources (markers, timing CSV, TSR summaries) are SQL views over the store
-(`sql/block_times_all.sql` and friends), always current. The estimate source needs
-arithmetic SQL is bad at — non-negative least squares with a bootstrap — so it is
-computed here and stored per lot (``derived/block_estimates``); ``refresh_estimates``
-recomputes a lot only when the set of its files changed.
+Every figure here is derived when a lot's logs land (``pipeline.store.derive``): the SQL
+models in ``sql/`` and the two Python models below, which need arithmetic SQL is bad at —
+the estimate (non-negative least squares with a bootstrap) and the site summary. The
+functions that answer questions only read what was derived, one lot or a few small
+aggregates at a time.
 """
 
 from __future__ import annotations
 
-import datetime as _dt
+from collections.abc import Sequence
 from dataclasses import dataclass
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 import polars as pl
-import pyarrow as pa
 
-from .errors import InputError
-from .store import Store
+from .errors import InputError, UsageError
+from .store.derive import LotContext, PyModel
+
+if TYPE_CHECKING:
+    import pyarrow as pa
 
 MIN_PARTS_PER_UNKNOWN = 3  # fewer parts than this per unknown: no estimate is made
+OVERHEAD = "overhead"      # the estimate's intercept: per-part time outside any block
 
 
-# -- estimate method ---------------------------------------------------------------------
-def refresh_estimates(store: Store, force: bool = False) -> list[str]:
-    """(Re)compute NNLS block estimates for every lot whose files changed. Returns one
-    line per lot that could not be estimated (too few parts, no part times)."""
+# -- the estimate method (a Python model, run per lot when its logs change) ---------------
+def estimate_model(ctx: LotContext) -> dict[str, pa.Table]:
+    """NNLS block estimates of one lot from part totals, and its one-line findings."""
     from .estimate import estimate_block_times
+    from .schemas import DERIVED
 
-    lots = store.sql("""
-        select lot_id, string_agg(distinct file_id, ',' order by file_id) as file_ids
-        from parts where source = 'stdf' group by lot_id order by lot_id""")
-    done = store.sql("select distinct lot_id, file_ids from raw_block_estimates")
-    have = dict(zip(done["lot_id"].to_list(), done["file_ids"].to_list(), strict=True))
-    problems = []
-    for lot, file_ids in lots.iter_rows():
-        if not force and have.get(lot) == file_ids:
-            continue
-        try:
-            table = _estimate_lot(store, lot, file_ids, estimate_block_times)
-        except InputError as e:
-            problems.append(f"{lot}: no estimate: {e}")
-            table = None
-        store.write_derived("block_estimates", lot, table)
-    return problems
+    rows: list[dict[str, Any]] = []
+    notes: list[dict[str, Any]] = []
+    try:
+        design = _design(ctx)
+        if design is not None:
+            rows, notes = _estimate_lot(ctx.lot, *design, estimate_block_times)
+    except InputError as e:
+        notes = [{"lot_id": ctx.lot, "kind": "no_estimate", "blocks": None, "sites": None,
+                  "message": f"no estimate: {e}"}]
+    import pyarrow as pa
+
+    return {"block_estimates": pa.Table.from_pylist(rows, DERIVED["block_estimates"]),
+            "timing_notes": pa.Table.from_pylist(notes, DERIVED["timing_notes"])}
 
 
-def _design(store: Store, lot: str) -> tuple[np.ndarray, np.ndarray, list[str], np.ndarray]:
-    """Parts x blocks matrix of which blocks each part ran, and part times (ms)."""
-    runs = store.sql("""
-        select p.file_id, p.part_index, p.site, p.test_time_ms, b.block, b.first_rec
-        from parts p join part_blocks b using (file_id, part_index)
-        where p.lot_id = ? and p.test_time_ms is not null and b.block <> 'unassigned'
-        order by p.file_id, p.part_index""", [lot])
-    if runs.is_empty():
-        raise InputError("no parts with both a recorded test time and assigned blocks")
+def _design(ctx: LotContext) -> tuple[np.ndarray, np.ndarray, list[str], np.ndarray] | None:
+    """Parts x blocks matrix of which blocks each STDF part ran, part times (ms) and
+    sites; None for a lot with no STDF parts (nothing to estimate from). Every part with
+    a test time is a row: one that ran no block (it stopped at contact, say) is a row of
+    the intercept alone, and is what separates the overhead from the first block."""
+    con = ctx.con
+    parts = con.execute("""
+        select test_time_ms, site from parts where source = 'stdf' and test_time_ms is not null
+        order by file_id, part_index""").fetchnumpy()
+    if len(parts["site"]) == 0:
+        any_stdf = _one(con, "select count(*) from parts where source = 'stdf'")
+        if any_stdf is None or not any_stdf[0]:
+            return None
+        raise InputError("no part has a recorded test time (PRR TEST_T)")
+    cells = con.execute("""
+        with p as (
+            select file_id, part_index,
+                   row_number() over (order by file_id, part_index) - 1 as r
+            from parts where source = 'stdf' and test_time_ms is not null
+        ),
+        runs as (
+            select p.r, b.block, b.first_rec
+            from part_blocks b join p using (file_id, part_index)
+            where b.block <> 'unassigned'
+        ),
+        cols as (
+            select block, row_number() over (order by min(first_rec), block) - 1 as c
+            from runs group by block
+        )
+        select runs.r, cols.c, cols.block from runs join cols using (block)""").fetchnumpy()
+    if len(cells["c"]) == 0:
+        raise InputError("no part ran an assigned block (no BPS/EPS section, TSR SEQ_NAME "
+                         "or block-map rule places its tests)")
     # columns in program order: by where each block first appears in its log
-    blocks = (runs.group_by("block").agg(pl.col("first_rec").min())
-              .sort("first_rec", "block")["block"].to_list())
-    keys = runs.select("file_id", "part_index", "site", "test_time_ms").unique(
-        maintain_order=True)
-    row = {(f, p): i for i, (f, p, _, _) in enumerate(keys.iter_rows())}
-    col = {b: j for j, b in enumerate(blocks)}
-    X = np.zeros((len(keys), len(blocks)))
-    for f, p, _, _, b, _ in runs.iter_rows():
-        X[row[(f, p)], col[b]] = 1.0
-    return X, keys["test_time_ms"].to_numpy(), blocks, keys["site"].to_numpy()
+    names = dict(zip(cells["c"].tolist(), cells["block"].tolist(), strict=True))
+    blocks = [names[c] for c in sorted(names)]
+    X = np.zeros((len(parts["site"]), len(blocks)))
+    X[cells["r"].astype(np.intp), cells["c"].astype(np.intp)] = 1.0
+    return X, np.asarray(parts["test_time_ms"], float), blocks, np.asarray(parts["site"])
 
 
-def _estimate_lot(store: Store, lot: str, file_ids: str, solve: Any) -> pa.Table:
-    X, y, blocks, sites = _design(store, lot)
+def _estimate_lot(lot: str, X: np.ndarray, y: np.ndarray, blocks: list[str],
+                  sites: np.ndarray, solve: Any) -> tuple[list[dict], list[dict]]:
+    """The pooled fit and one per site (when there are parts enough), as rows; findings
+    merged across the fits: one per group of blocks, naming the sites where it holds."""
+    need = MIN_PARTS_PER_UNKNOWN * (len(blocks) + 1)
+    if len(y) < need:
+        raise InputError(f"{len(y)} parts for {len(blocks) + 1} unknowns "
+                         f"(blocks and overhead); need {MIN_PARTS_PER_UNKNOWN} per unknown")
+    site_ids = [int(s) for s in np.unique(sites)] if len(np.unique(sites)) > 1 else []
+    fits: list[tuple[int | None, np.ndarray]] = [(None, np.ones(len(y), dtype=bool))]
+    fits += [(s, sites == s) for s in site_ids if (sites == s).sum() >= need]
+    estimates = [(site, mask, solve(X[mask], y[mask], blocks, seed=0)) for site, mask in fits]
+    findings = _merge_findings([(site, est) for site, _, est in estimates],
+                               per_site=len(fits) > 1)
     rows = []
-    groups: list[tuple[int | None, np.ndarray]] = [(None, np.ones(len(y), dtype=bool))]
-    groups += [(int(s), sites == s) for s in np.unique(sites)
-               if len(np.unique(sites)) > 1
-               and (sites == s).sum() >= MIN_PARTS_PER_UNKNOWN * (len(blocks) + 1)]
-    for site, mask in groups:
-        if mask.sum() < MIN_PARTS_PER_UNKNOWN * (len(blocks) + 1):
-            raise InputError(f"{int(mask.sum())} parts for {len(blocks) + 1} unknowns "
-                             f"(blocks and overhead); need {MIN_PARTS_PER_UNKNOWN} per unknown")
-        est = solve(X[mask], y[mask], blocks, seed=0)
-        for name in ["overhead", *blocks]:
+    for site, mask, est in estimates:
+        member = {name: (kind, tuple(group)) for group, kind in zip(est.groups,
+                                                                    est.group_kinds,
+                                                                    strict=True)
+                  for name in group}
+        for name in [OVERHEAD, *blocks]:
             r = est.blocks[name]
-            rows.append({"lot_id": lot, "block": name, "site": site,
-                         "parts": int(X[mask][:, blocks.index(name)].sum()) if name in blocks
-                         else int(mask.sum()),
-                         "mean_ms": r.value_ms, "ci_low_ms": _finite(r.ci_low_ms),
-                         "ci_high_ms": _finite(r.ci_high_ms), "identifiable": r.identifiable,
-                         "warning": est.warning, "file_ids": file_ids,
-                         "computed_at": _dt.datetime.now().replace(microsecond=0)})
-    return pa.Table.from_pylist(rows)
+            key = member.get(name) if not r.identifiable else None
+            group = " + ".join(key[1]) if key else None
+            lo, hi = est.group_ci_ms.get(group, (None, None)) if group else (None, None)
+            rows.append({
+                "lot_id": lot, "block": name, "site": site,
+                "parts": int(X[mask][:, blocks.index(name)].sum()) if name in blocks
+                else int(mask.sum()),
+                "mean_ms": r.value_ms, "ci_low_ms": _finite(r.ci_low_ms),
+                "ci_high_ms": _finite(r.ci_high_ms), "identifiable": r.identifiable,
+                "warning": findings[key]["message"] if key else None,
+                "group_blocks": group, "group_kind": key[0] if key else None,
+                "group_ms": _finite(est.group_totals.get(group)) if group else None,
+                "group_ci_low_ms": _finite(lo), "group_ci_high_ms": _finite(hi)})
+    notes = [{"lot_id": lot, "kind": "inseparable", "blocks": " + ".join(key[1]),
+              "sites": ",".join(map(str, f["sites"])) or None, "message": f["message"]}
+             for key, f in findings.items()]
+    return rows, notes
 
 
-def _finite(v: float) -> float | None:
+def _merge_findings(estimates: Sequence[tuple[int | None, Any]],
+                    per_site: bool) -> dict[tuple[str, tuple[str, ...]], dict[str, Any]]:
+    """(kind, blocks) -> the finding's sentence (from the pooled fit where it has it) and
+    the sites whose own fit shows it."""
+    out: dict[tuple[str, tuple[str, ...]], dict[str, Any]] = {}
+    for site, est in estimates:
+        for group, text, kind in zip(est.groups, est.findings, est.group_kinds, strict=True):
+            f = out.setdefault((kind, tuple(group)), {"text": text, "sites": []})
+            if site is None:
+                f["text"] = text
+            else:
+                f["sites"].append(site)
+    n_sites = len(estimates) - 1
+    for f in out.values():
+        s = f["sites"]
+        note = ("" if not per_site else " (on every site)" if len(s) == n_sites
+                else f" (site{'s' if len(s) > 1 else ''} {', '.join(map(str, s))})" if s
+                else " (in the fit over all sites; no single site shows it)")
+        f["message"] = f["text"] + note
+    return out
+
+
+def _finite(v: float | None) -> float | None:
     return None if v is None or not np.isfinite(v) else float(v)
 
 
-# -- the attribution table ---------------------------------------------------------------
-def block_table(store: Store, lot: str | None = None) -> pl.DataFrame:
+# -- the site summary (a Python model, run per lot) -------------------------------------
+def site_model(ctx: LotContext) -> dict[str, pa.Table]:
+    """T_N, T_1, MSE, index time and serialised blocks of one lot (see site_summaries)."""
+    import pyarrow as pa
+
+    from .schemas import DERIVED
+
+    con = ctx.con
+    n, td_ms, n_sites, total = _one(con, """select count(*), avg(touchdown_ms), max(sites),
+                                            sum(touchdown_ms) from touchdowns""")
+    if not n:
+        return {"site_summary": DERIVED["site_summary"].empty_table()}
+    pooled = _one(con, "select attributed_ms from reconciliation where site is null")
+    overhead = _overhead_ms(con)
+    attributed = pooled[0] if pooled is not None else None
+    one_site = (attributed or 0.0) + max(overhead or 0.0, 0.0) if pooled is not None else 0.0
+    serial = [b for (b,) in con.execute("""select block from serialized_blocks
+                                          where is_serialized order by block""").fetchall()]
+    wall = _one(con, """select sum(epoch(finished_at) - epoch(started_at)) from lots
+                        where finished_at > started_at""")[0]
+    method = _one(con, "select min(method) from block_times")[0]
+    parts = _one(con, "select count(*) from parts")[0]
+    row = {"lot_id": ctx.lot, "sites": int(n_sites or 0), "touchdowns": int(n),
+           "parts": int(parts),
+           "touchdown_ms": float(td_ms or 0.0), "one_site_ms": float(one_site),
+           "overhead_ms": overhead,
+           "mse": multi_site_efficiency(one_site, float(td_ms or 0.0), int(n_sites or 0)),
+           "index_ms": index_ms(wall, float(total or 0.0), int(n)),
+           "serialized_blocks": serial, "method": method}
+    return {"site_summary": pa.Table.from_pylist([row], DERIVED["site_summary"])}
+
+
+def _one(con: Any, query: str) -> Any:
+    """The first row (the whole result is fetched: DuckDB wants it finished)."""
+    rows = con.execute(query).fetchall()
+    return rows[0] if rows else None
+
+
+def _overhead_ms(con: Any) -> float | None:
+    """Per-part time outside every block: the part time outside the span of its blocks
+    (markers, CSV), else the estimate's intercept, else the smallest unattributed time of
+    any site (an upper bound, so MSE is then a lower bound)."""
+    for query in ("select avg(outside_ms) from part_spans where outside_ms >= 0",
+                  "select mean_ms from block_times where block = 'overhead' and site is null",
+                  "select min(unattributed_ms) from reconciliation where site is not null"):
+        got = _one(con, query)
+        if got is not None and got[0] is not None:
+            return float(got[0])
+    return None
+
+
+def index_ms(wall_s: float | None, touchdown_total_ms: float, touchdowns: int) -> float | None:
+    """(lot wall clock - time under test) / touchdowns. MIR/MRR times have 1 s
+    resolution, so over n touchdowns this is good to about 1000/n ms."""
+    if wall_s is None or touchdowns == 0:
+        return None
+    index = (wall_s * 1000.0 - touchdown_total_ms) / touchdowns
+    return index if index >= 0 else None
+
+
+def multi_site_efficiency(t1_ms: float, tn_ms: float, n: int) -> float | None:
+    """MSE = 1 - (T_N - T_1) / ((N - 1) * T_1): 1.0 when N sites cost no more than one.
+    Common practice in multi-site test; undefined for one site."""
+    if n < 2 or t1_ms <= 0:
+        return None
+    return 1.0 - (tn_ms - t1_ms) / ((n - 1) * t1_ms)
+
+
+PY_MODELS = (
+    PyModel(("block_estimates", "timing_notes"), ("parts", "part_blocks"), estimate_model),
+    PyModel(("site_summary",), ("touchdowns", "reconciliation", "part_spans", "block_times",
+                                "serialized_blocks", "lots"), site_model),
+)
+
+
+# -- questions ---------------------------------------------------------------------------
+def check_lot(store: Any, lot: str | None) -> None:
+    """UsageError (exit 2) for a lot the store does not hold; lists a few it does."""
+    if lot is None:
+        return
+    known = store.sql("select lot from raw_lot_gens order by lot")["lot"].to_list()
+    if lot not in known:
+        shown = ", ".join(known[:10]) + (f" and {len(known) - 10} more" if len(known) > 10
+                                         else "")
+        raise UsageError(f"lot {lot!r} is not in the store (lots: {shown or 'none'})")
+
+
+def block_table(store: Any, lot: str | None = None) -> pl.DataFrame:
     """Per lot, one row per block (pooled over sites) ranked by mean time, with its share
     of part time, the cumulative share (a Pareto), each site's mean and the method."""
+    check_lot(store, lot)
     where, params = ("where lot_id = ?", [lot]) if lot else ("", [])
     df = store.sql(f"""
         select lot_id, block, site, parts, mean_ms, p50_ms, p95_ms, total_ms, method,
                share_pct, ci_low_ms, ci_high_ms, identifiable
         from block_times {where} order by lot_id, mean_ms desc""", params)
     if lot and df.is_empty():
-        raise InputError(f"lot {lot!r} has no block times (see `tandem sql ... "
-                         f"\"select distinct lot_id from lots\"`)")
-    pooled = df.filter(pl.col("site").is_null() & (pl.col("block") != "overhead"))
-    per_site = (df.filter(pl.col("site").is_not_null() & (pl.col("block") != "overhead"))
+        raise InputError(f"lot {lot!r} has no block times (no timing markers, timing CSV, "
+                         "TSR summaries, or part times the estimate can use)")
+    pooled = df.filter(pl.col("site").is_null() & (pl.col("block") != OVERHEAD))
+    per_site = (df.filter(pl.col("site").is_not_null() & (pl.col("block") != OVERHEAD))
                 .with_columns(pl.format("site_{}_ms", pl.col("site")).alias("col"))
                 .pivot(on="col", index=["lot_id", "block"], values="mean_ms"))
     site_cols = sorted((c for c in per_site.columns if c.startswith("site_")),
@@ -124,17 +269,22 @@ def block_table(store: Store, lot: str | None = None) -> pl.DataFrame:
                        "identifiable"])
 
 
-def unattributed(store: Store, lot: str | None = None) -> pl.DataFrame:
+def unattributed(store: Any, lot: str | None = None) -> pl.DataFrame:
     where, params = ("where lot_id = ?", [lot]) if lot else ("", [])
     return store.sql(f"select * from reconciliation {where} order by lot_id, site nulls last",
                      params)
 
 
-def warnings(store: Store, lot: str | None = None) -> list[str]:
-    where, params = ("and lot_id = ?", [lot]) if lot else ("", [])
-    df = store.sql(f"""select distinct lot_id, warning from block_times
-                       where warning is not null {where} order by lot_id""", params)
-    return [f"{lot_id}: {w}" for lot_id, w in df.iter_rows()]
+def warnings(store: Any, lot: str | None = None) -> list[str]:
+    """One line per lot and finding: blocks the estimate cannot separate (for lots whose
+    best source is the estimate), and lots that could not be estimated."""
+    where, params = ("and n.lot_id = ?", [lot]) if lot else ("", [])
+    df = store.sql(f"""
+        select n.lot_id, n.message from timing_notes n
+        left join (select distinct lot_id, method from block_times) b using (lot_id)
+        where (n.kind <> 'inseparable' or b.method = 'estimate') {where}
+        order by n.lot_id, n.kind, n.blocks""", params)
+    return [f"{lot_id}: {m}" for lot_id, m in df.iter_rows()]
 
 
 # -- the multi-site view -----------------------------------------------------------------
@@ -151,15 +301,7 @@ class SiteSummary:
     per_site: pl.DataFrame
 
 
-def multi_site_efficiency(t1_ms: float, tn_ms: float, n: int) -> float | None:
-    """MSE = 1 - (T_N - T_1) / ((N - 1) * T_1): 1.0 when N sites cost no more than one.
-    Common practice in multi-site test; undefined for one site."""
-    if n < 2 or t1_ms <= 0:
-        return None
-    return 1.0 - (tn_ms - t1_ms) / ((n - 1) * t1_ms)
-
-
-def site_summaries(store: Store, lot: str | None = None) -> list[SiteSummary]:
+def site_summaries(store: Any, lot: str | None = None) -> list[SiteSummary]:
     """Touchdown time, one-site time T_1, MSE, per-site imbalance, blocks serialised
     across sites, and index time, per lot.
 
@@ -169,113 +311,131 @@ def site_summaries(store: Store, lot: str | None = None) -> list[SiteSummary]:
     instrument, which fall inside the span, are not counted in T_1. Without it (TSR or
     estimate) the estimate's intercept is used, else the smallest unattributed time of any
     site — an upper bound, so MSE is then a lower bound."""
+    check_lot(store, lot)
     where, params = ("where lot_id = ?", [lot]) if lot else ("", [])
-    lots = store.sql(f"select distinct lot_id from touchdowns {where} order by lot_id",
-                     params)["lot_id"].to_list()
-    if lot and not lots:
-        raise InputError(f"lot {lot!r} is not in the store")
-    return [_site_summary(store, name) for name in lots]
-
-
-def _site_summary(store: Store, lot: str) -> SiteSummary:
-    td = store.sql("""select count(*) as n, avg(touchdown_ms) as ms, max(sites) as sites,
-                             sum(touchdown_ms) as total_ms
-                      from touchdowns where lot_id = ?""", [lot]).row(0, named=True)
-    rec = store.sql("select * from reconciliation where lot_id = ?", [lot])
-    pooled_attr = rec.filter(pl.col("site").is_null())["attributed_ms"].to_list()
-    per_site = rec.filter(pl.col("site").is_not_null()).select(
-        "site", "parts", "part_ms", "attributed_ms", "unattributed_ms").sort("site")
-    fastest = per_site["part_ms"].min() if not per_site.is_empty() else None
-    per_site = per_site.with_columns(
-        (100.0 * (pl.col("part_ms") / fastest - 1.0)).alias("imbalance_pct")
-        if fastest else pl.lit(None).alias("imbalance_pct"))
-    overhead = _overhead_ms(store, lot, per_site)
-    one_site = (pooled_attr[0] or 0.0) + max(overhead or 0.0, 0.0) if pooled_attr else 0.0
-    serial = store.sql("""select block from serialized_blocks
-                          where lot_id = ? and is_serialized order by block""", [lot])
-    return SiteSummary(
-        lot_id=lot, sites=int(td["sites"] or 0), touchdowns=int(td["n"]),
-        touchdown_ms=float(td["ms"] or 0.0), one_site_ms=float(one_site),
-        mse=multi_site_efficiency(one_site, float(td["ms"] or 0.0), int(td["sites"] or 0)),
-        index_ms=_index_ms(store, lot, float(td["total_ms"] or 0.0), int(td["n"])),
-        serialized=serial["block"].to_list(), per_site=per_site)
-
-
-def _overhead_ms(store: Store, lot: str, per_site: pl.DataFrame) -> float | None:
-    spans = store.sql("""select avg(outside_ms) as ms from part_spans
-                         where lot_id = ? and outside_ms >= 0""", [lot])["ms"][0]
-    if spans is not None:
-        return float(spans)
-    est = store.sql("""select mean_ms from block_times
-                       where lot_id = ? and block = 'overhead' and site is null""", [lot])
-    if not est.is_empty():
-        return float(est["mean_ms"][0])
-    if per_site.is_empty():
-        return None
-    return float(per_site["unattributed_ms"].min())  # type: ignore[arg-type]
-
-
-def _index_ms(store: Store, lot: str, touchdown_total_ms: float, touchdowns: int) -> float | None:
-    """(lot wall clock - time under test) / touchdowns. MIR/MRR times have 1 s
-    resolution, so over n touchdowns this is good to about 1000/n ms."""
-    wall = store.sql("""select sum(epoch(finished_at) - epoch(started_at)) as s
-                        from lots where lot_id = ? and finished_at > started_at""", [lot])
-    seconds = wall["s"][0]
-    if seconds is None or touchdowns == 0:
-        return None
-    index = (seconds * 1000.0 - touchdown_total_ms) / touchdowns
-    return index if index >= 0 else None
+    sums = store.sql(f"select * from site_summary {where} order by lot_id", params)
+    if lot and sums.is_empty():
+        raise InputError(f"lot {lot!r} has no touchdowns to summarise")
+    rec = store.sql(f"""select lot_id, site, parts, part_ms, attributed_ms, unattributed_ms
+                        from reconciliation {where} order by lot_id, site""", params)
+    out = []
+    for s in sums.iter_rows(named=True):
+        per_site = rec.filter((pl.col("lot_id") == s["lot_id"]) & pl.col("site").is_not_null()
+                              ).drop("lot_id")
+        fastest = per_site["part_ms"].min() if not per_site.is_empty() else None
+        per_site = per_site.with_columns(
+            (100.0 * (pl.col("part_ms") / fastest - 1.0)).alias("imbalance_pct")
+            if fastest else pl.lit(None).alias("imbalance_pct"))
+        out.append(SiteSummary(
+            lot_id=s["lot_id"], sites=int(s["sites"]), touchdowns=int(s["touchdowns"]),
+            touchdown_ms=float(s["touchdown_ms"]), one_site_ms=float(s["one_site_ms"]),
+            mse=s["mse"], index_ms=s["index_ms"], serialized=list(s["serialized_blocks"]),
+            per_site=per_site))
+    return out
 
 
 # -- across lots -------------------------------------------------------------------------
-def drift(store: Store, k: float = 3.0, window: int = 10, min_history: int = 3,
+def drift(store: Any, k: float = 3.0, window: int = 10, min_history: int = 3,
           min_change_pct: float = 2.0) -> pl.DataFrame:
     """Block time per lot over the lot start date, each lot compared with the median of
     the `window` lots before it: flagged when it is more than k robust sigmas away
     (sigma = 1.4826 x median absolute deviation, floored at 0.5 % of the median so that
     near-constant histories do not flag noise) and more than min_change_pct from the
-    median. Needs min_history earlier lots."""
+    median. Needs min_history earlier lots.
+
+    Only what the data determine is compared: a block the estimate cannot separate is
+    never flagged, nor taken as history; where it always runs with others, their sum is
+    compared instead (a ``group`` row: the estimate's group total against the sum of the
+    members' measured times in other lots), and a group with the per-part overhead is not
+    compared at all. For an estimated value, sigma also holds the estimate's own standard
+    error (from its bootstrap interval), so its uncertainty counts before drift is called."""
     df = store.sql("""
-        select b.block, b.lot_id, min(l.started_at) as started_at, any_value(b.mean_ms) as mean_ms,
-               any_value(b.method) as method
-        from block_times b join lots l using (lot_id)
+        select b.block, b.lot_id, l.started_at, b.mean_ms, b.method, b.identifiable,
+               b.ci_low_ms, b.ci_high_ms, b.group_blocks, b.group_kind, b.group_ms,
+               b.group_ci_low_ms, b.group_ci_high_ms
+        from block_times b
+        join (select lot_id, min(started_at) as started_at from lots group by lot_id) l
+            using (lot_id)
         where b.site is null and b.block <> 'overhead'
-        group by b.block, b.lot_id
-        order by b.block, started_at, b.lot_id""")
+        order by l.started_at, b.lot_id, b.block""")
+    series = _drift_series(df)
     rows = []
-    for _, g in df.group_by(["block"], maintain_order=True):
-        vals = g["mean_ms"].to_numpy()
-        for i, r in enumerate(g.iter_rows(named=True)):
-            hist = vals[max(0, i - window):i]
-            med = sigma = None
-            flagged = False
-            if len(hist) >= min_history:
-                med = float(np.median(hist))
-                sigma = max(1.4826 * float(np.median(np.abs(hist - med))), 0.005 * abs(med))
-                change = 100.0 * (r["mean_ms"] - med) / med if med else 0.0
-                flagged = abs(r["mean_ms"] - med) > k * sigma and abs(change) > min_change_pct
-            rows.append({**r, "baseline_ms": med, "sigma_ms": sigma, "is_flagged": flagged})
+    for _, points in sorted(series.items()):
+        points.sort(key=lambda p: (p["started_at"] is None, p["started_at"], p["lot_id"]))
+        history: list[float] = []
+        for p in points:
+            rows.append(_judge(p, np.asarray(history[-window:]), k, min_history,
+                               min_change_pct))
+            if p["comparable"]:
+                history.append(p["mean_ms"])
     if not rows:
-        return pl.DataFrame(schema={"block": pl.String, "lot_id": pl.String,
-                                    "started_at": pl.Datetime, "mean_ms": pl.Float64,
-                                    "method": pl.String, "baseline_ms": pl.Float64,
-                                    "sigma_ms": pl.Float64, "is_flagged": pl.Boolean})
-    return pl.DataFrame(rows)
+        return pl.DataFrame(schema=_DRIFT_SCHEMA)
+    return pl.DataFrame(rows, schema=_DRIFT_SCHEMA)
 
 
-# -- rules and rendering -----------------------------------------------------------------
-def save_block_rules(store: Store, blockmap: Any) -> None:
-    """Keep the block map's assignment rules in the store: the results view uses them
-    for tests that no BPS/EPS section or TSR SEQ_NAME places."""
-    rules = [{"priority": i, "block": b, "kind": kind, "lo": lo, "hi": hi, "pattern": pat}
-             for i, (b, kind, lo, hi, pat) in enumerate(blockmap.rules())]
-    schema = pa.schema([("priority", pa.int32()), ("block", pa.large_string()),
-                        ("kind", pa.large_string()), ("lo", pa.int64()), ("hi", pa.int64()),
-                        ("pattern", pa.large_string())])
-    store.write_derived("block_rules", "current", pa.Table.from_pylist(rules, schema=schema))
+_DRIFT_SCHEMA: dict[str, Any] = {"block": pl.String, "kind": pl.String, "lot_id": pl.String,
+                 "started_at": pl.Datetime("us"), "mean_ms": pl.Float64, "method": pl.String,
+                 "identifiable": pl.Boolean, "baseline_ms": pl.Float64, "sigma_ms": pl.Float64,
+                 "is_flagged": pl.Boolean}
 
 
-def render_times(store: Store, table: pl.DataFrame, lot: str | None) -> str:
+def _drift_series(df: pl.DataFrame) -> dict[tuple[str, str], list[dict[str, Any]]]:
+    """(kind, name) -> one point per lot: every block, and each group of blocks the
+    estimate could only time together (always-together groups without the overhead)."""
+    series: dict[tuple[str, str], list[dict[str, Any]]] = {}
+    groups: set[str] = set()
+    for r in df.iter_rows(named=True):
+        series.setdefault(("block", r["block"]), []).append(
+            {**_point(r, "block", r["block"], r["mean_ms"]), "comparable": r["identifiable"],
+             "lo": r["ci_low_ms"], "hi": r["ci_high_ms"]})
+        g = r["group_blocks"]
+        if g and r["group_kind"] == "identical" and OVERHEAD not in g.split(" + "):
+            groups.add(g)
+    for g in sorted(groups):
+        members = g.split(" + ")
+        for _, lot_rows in df.group_by(["lot_id"], maintain_order=True):
+            by_block = {r["block"]: r for r in lot_rows.iter_rows(named=True)}
+            est = next((r for r in by_block.values() if r["group_blocks"] == g), None)
+            if est is not None:
+                point = {**_point(est, "group", g, est["group_ms"]), "comparable": True,
+                         "lo": est["group_ci_low_ms"], "hi": est["group_ci_high_ms"]}
+            elif all(m in by_block and by_block[m]["identifiable"] for m in members):
+                first = by_block[members[0]]
+                point = {**_point(first, "group", g, sum(by_block[m]["mean_ms"]
+                                                          for m in members)),
+                         "comparable": True, "lo": None, "hi": None, "history_only": True}
+            else:
+                continue
+            series.setdefault(("group", g), []).append(point)
+    return series
+
+
+def _point(r: dict[str, Any], kind: str, name: str, value: float) -> dict[str, Any]:
+    return {"block": name, "kind": kind, "lot_id": r["lot_id"], "started_at": r["started_at"],
+            "mean_ms": value, "method": r["method"], "identifiable": kind == "group"
+            or bool(r["identifiable"])}
+
+
+def _judge(p: dict[str, Any], hist: np.ndarray, k: float, min_history: int,
+           min_change_pct: float) -> dict[str, Any]:
+    med = sigma = None
+    flagged = False
+    if p["comparable"] and not p.get("history_only") and len(hist) >= min_history:
+        med = float(np.median(hist))
+        sigma = max(1.4826 * float(np.median(np.abs(hist - med))), 0.005 * abs(med))
+        if p["method"] == "estimate" and p["lo"] is not None and p["hi"] is not None:
+            # The estimate's own standard error (its 95 % interval spans ~3.92 of them),
+            # added in quadrature: a difference the estimate cannot resolve is no drift.
+            sigma = float(np.hypot(sigma, (p["hi"] - p["lo"]) / 3.92))
+        change = 100.0 * (p["mean_ms"] - med) / med if med else 0.0
+        flagged = abs(p["mean_ms"] - med) > k * sigma and abs(change) > min_change_pct
+    return {key: p[key] for key in ("block", "kind", "lot_id", "started_at", "mean_ms",
+                                    "method", "identifiable")} | {
+        "baseline_ms": med, "sigma_ms": sigma, "is_flagged": flagged}
+
+
+# -- rendering -------------------------------------------------------------------------
+def render_times(store: Any, table: pl.DataFrame, lot: str | None) -> str:
     from .cli import format_frame
 
     out = []
@@ -325,3 +485,4 @@ def render_sites(summaries: list[SiteSummary]) -> str:
                 format_frame(s.per_site.with_columns(pl.col(pl.Float64).round(1)),
                              "table").rstrip(), ""]
     return "\n".join(out).rstrip() + "\n"
+

@@ -12,12 +12,12 @@ sbr as (
 ),
 
 final as (
-    select file_id, 'hard' as bin_kind, head_num::integer as head, site_num::integer as site,
+    select file_id, lot as lot_id, 'hard' as bin_kind, head_num::integer as head, site_num::integer as site,
            head_num = 255 as is_summary, hbin_num::integer as bin, hbin_cnt::bigint as parts,
            nullif(trim(hbin_pf), '') as pass_fail, nullif(hbin_nam, '') as bin_name
     from hbr
     union all
-    select file_id, 'soft', head_num::integer, site_num::integer, head_num = 255,
+    select file_id, lot, 'soft', head_num::integer, site_num::integer, head_num = 255,
            sbin_num::integer, sbin_cnt::bigint, nullif(trim(sbin_pf), ''),
            nullif(sbin_nam, '')
     from sbr

@@ -1,6 +1,7 @@
 -- block_times: per lot, the best timing source's figures for each block and site
 -- (order: marker, csv, tsr, estimate; the others stay in block_times_all).
 -- One row per (lot_id, block, site); site null = pooled over sites.
+-- materialized: lot
 with
 
 all_sources as (

@@ -3,12 +3,14 @@
 --   marker   DTR 'TT' timing markers (exact, per part)      -> marker_times
 --   csv      the timing CSV (exact, per part)                 -> csv_times
 --   tsr      TSR TEST_TIM x EXEC_CNT per block / parts        -> tsr_times (means only)
---   estimate NNLS on PRR.TEST_T against the blocks each part ran (tandem times writes it,
---            with bootstrap confidence intervals and identifiability)
+--   estimate NNLS on PRR.TEST_T against the blocks each part ran (block_estimates,
+--            with bootstrap confidence intervals and identifiability; group_* name the
+--            blocks it can only time together, and their total)
 -- share_pct: the block's total time over the total part time (PRR.TEST_T, or the CSV's
 -- test_time_ms) of the same lot and site: its share of tester time, also when it ran on
 -- only some parts (stop-on-fail). method_rank orders the sources best first; block_times keeps
 -- the best one per lot.
+-- materialized: lot
 with
 
 marker_rows as (
@@ -21,7 +23,7 @@ csv_rows as (
 ),
 
 estimates as (
-    select * from raw_block_estimates
+    select * from block_estimates
 ),
 
 part_time as (
@@ -55,16 +57,21 @@ summarised as (
 
 estimated as (
     select lot_id, block, site, 'estimate' as method, parts, mean_ms, null::double,
-           null::double, mean_ms * parts, ci_low_ms, ci_high_ms, identifiable, warning
+           null::double, mean_ms * parts, ci_low_ms, ci_high_ms, identifiable, warning,
+           group_blocks, group_kind, group_ms, group_ci_low_ms, group_ci_high_ms
     from estimates
 ),
 
 unioned as (
     select *, null::double as ci_low_ms, null::double as ci_high_ms, true as identifiable,
-           null::varchar as warning
+           null::varchar as warning, null::varchar as group_blocks,
+           null::varchar as group_kind, null::double as group_ms,
+           null::double as group_ci_low_ms, null::double as group_ci_high_ms
     from measured
     union all
-    select *, null::double, null::double, true, null::varchar from summarised
+    select *, null::double, null::double, true, null::varchar, null::varchar,
+           null::varchar, null::double, null::double, null::double
+    from summarised
     union all
     select * from estimated
 ),
@@ -86,7 +93,12 @@ final as (
         u.ci_low_ms,
         u.ci_high_ms,
         u.identifiable,
-        u.warning
+        u.warning,
+        u.group_blocks,
+        u.group_kind,
+        u.group_ms,
+        u.group_ci_low_ms,
+        u.group_ci_high_ms
     from unioned as u
     left join part_time as pt
         on pt.lot_id = u.lot_id and pt.site is not distinct from u.site

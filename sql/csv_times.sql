@@ -1,5 +1,6 @@
 -- csv_times: one row per (file_id, lot_id, touchdown, head, site, part_id, block) from a
 -- timing CSV (README, "Timing conventions"); rows of one block for one part are summed.
+-- materialized: file
 with
 
 csv as (

@@ -1,7 +1,9 @@
 -- lots: one row per (lot_id, file_id) — a lot tested in several logs has several rows.
 -- STDF logs take the lot from MIR (STDF V4, MIR 1/10) and the finish from MRR; times are
 -- the test floor's local clock (the standard records no zone), so they stay naive.
--- Timing CSVs contribute their lot_id with no program details.
+-- Timing CSVs contribute their lot_id with no program details. lot_id is the partition
+-- the log's rows are filed under (the MIR's LOT_ID, 'unknown' when it gives none).
+-- materialized: file
 with
 
 mir as (
@@ -13,12 +15,12 @@ mrr as (
 ),
 
 csv as (
-    select distinct file_id, lot_id from raw_timing_csv
+    select distinct file_id, lot from raw_timing_csv
 ),
 
 stdf_lots as (
     select
-        coalesce(nullif(mir.lot_id, ''), 'unknown') as lot_id,
+        mir.lot as lot_id,
         mir.file_id,
         nullif(mir.part_typ, '') as part_type,
         nullif(mir.job_nam, '') as program,
@@ -37,7 +39,7 @@ stdf_lots as (
 
 csv_lots as (
     select
-        lot_id,
+        lot as lot_id,
         file_id,
         null::varchar as part_type,
         null::varchar as program,

@@ -2,6 +2,7 @@
 -- the block's measured time on that site in that touchdown (markers of one block on one
 -- site in one touchdown are summed), and the part tested there. Key: (file_id,
 -- touchdown, head, site, block).
+-- materialized: file
 with
 
 markers as (
@@ -14,18 +15,18 @@ parts as (
 
 per_block as (
     select
-        file_id, touchdown, head, site, block,
+        lot_id, file_id, touchdown, head, site, block,
         sum(end_us - start_us) / 1000.0 as duration_ms,
         min(start_us) / 1000.0 as start_ms,
         max(end_us) / 1000.0 as end_ms,
         count(*) as markers
     from markers
-    group by file_id, touchdown, head, site, block
+    group by lot_id, file_id, touchdown, head, site, block
 ),
 
 final as (
     select
-        coalesce(p.lot_id, 'unknown') as lot_id,
+        b.lot_id,
         b.file_id,
         b.touchdown,
         b.head,

@@ -3,6 +3,7 @@
 -- end_us=<int>` with optional `head=<n>`, tokens in any order, times in microseconds from
 -- the touchdown's start. Key: (file_id, rec_index). is_valid is false when a token is
 -- missing or end_us < start_us; such markers are kept so they can be reported.
+-- materialized: file
 with
 
 dtr as (
@@ -11,6 +12,7 @@ dtr as (
 
 tt as (
     select
+        lot,
         file_id,
         rec_index,
         touchdown,
@@ -26,6 +28,7 @@ tt as (
 
 final as (
     select
+        lot as lot_id,
         file_id,
         rec_index,
         touchdown,

@@ -2,6 +2,7 @@
 -- from its results (results.block: section, else TSR SEQ_NAME, else block-map rule, else
 -- 'unassigned'). The estimate method and reconciliation read it.
 -- Key: (file_id, part_index, block).
+-- materialized: file
 with
 
 results as (
@@ -10,6 +11,7 @@ results as (
 
 final as (
     select
+        lot_id,
         file_id,
         part_index,
         block,
@@ -17,7 +19,7 @@ final as (
         min(rec_index) as first_rec,
         max(rec_index) as last_rec
     from results
-    group by file_id, part_index, block
+    group by lot_id, file_id, part_index, block
 )
 
 select * from final

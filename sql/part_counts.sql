@@ -9,6 +9,7 @@ pcr as (
 final as (
     select
         file_id,
+        lot as lot_id,
         head_num::integer as head,
         site_num::integer as site,
         head_num = 255 as is_summary,

@@ -4,6 +4,7 @@
 -- instrument), and the part time outside that span (outside_ms = test_time_ms - span_ms:
 -- per-part overhead such as contact set-up and binning). Key: (file_id, touchdown,
 -- head, site).
+-- materialized: file
 with
 
 markers as (

@@ -4,15 +4,13 @@
 -- passed is null), bits 0/1 = retest that supersedes an earlier part, bit 2 = abnormal
 -- end; X/Y -32768 = not given; TEST_T 0 = not recorded (null here).
 -- Timing-CSV lots contribute one row per (lot, touchdown, head, site, part_id).
+-- lot_id: the MIR's LOT_ID ('unknown' when it gives none), the partition the log's rows
+-- are filed under.
+-- materialized: file
 with
 
 prr as (
     select * from raw_parts
-),
-
-mir as (
-    select file_id, any_value(coalesce(nullif(lot_id, ''), 'unknown')) as lot_id
-    from raw_mir group by file_id
 ),
 
 csv as (
@@ -22,7 +20,7 @@ csv as (
 stdf_parts as (
     select
         prr.file_id,
-        coalesce(mir.lot_id, 'unknown') as lot_id,
+        prr.lot as lot_id,
         prr.part_index,
         prr.touchdown,
         prr.head_num::integer as head,
@@ -39,13 +37,12 @@ stdf_parts as (
         (prr.part_flg & 4) <> 0 as is_abnormal_end,
         'stdf' as source
     from prr
-    left join mir using (file_id)
 ),
 
 csv_parts as (
     select
         file_id,
-        lot_id,
+        lot as lot_id,
         (dense_rank() over (partition by file_id order by min(line)) - 1)::bigint
             as part_index,
         touchdown::integer as touchdown,
@@ -63,7 +60,7 @@ csv_parts as (
         false as is_abnormal_end,
         'csv' as source
     from csv
-    group by file_id, lot_id, touchdown, head, site, part_id
+    group by file_id, lot, touchdown, head, site, part_id
 ),
 
 final as (

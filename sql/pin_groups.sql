@@ -9,6 +9,7 @@ pgr as (
 final as (
     select
         file_id,
+        lot as lot_id,
         grp_indx::integer as group_index,
         nullif(grp_nam, '') as group_name,
         unnest(pmr_indx)::integer as pin_index

@@ -9,6 +9,7 @@ pmr as (
 final as (
     select
         file_id,
+        lot as lot_id,
         pmr_indx::integer as pin_index,
         chan_typ::integer as channel_type,
         nullif(chan_nam, '') as channel_name,

@@ -5,6 +5,7 @@
 -- accounts for: per-part overhead, waits for shared instruments, handler handshakes; for
 -- the estimate source it is the fitted per-part overhead. site null = pooled.
 -- Key: (lot_id, site).
+-- materialized: lot
 with
 
 parts as (

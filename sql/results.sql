@@ -5,8 +5,10 @@
 -- test_name: the record's TEST_TXT, else the first named record of that test number in
 -- the file, else the TSR TEST_NAM. block: the innermost BPS/EPS section, else the TSR
 -- SEQ_NAME of that test number, else the first matching rule of the block map last
--- given to `tandem times --blocks` (test-number range or name glob), else 'unassigned'.
+-- given to `tandem times --blocks` (test-number range or name glob), else 'unassigned'
+-- (names and fallback blocks come from result_tests, derived once per log).
 -- failed: TEST_FLG bit 7; null when bit 6 (no pass/fail indication) is set.
+-- A filter on lot_id reads only that lot's files.
 with
 
 ptr as (
@@ -22,35 +24,25 @@ ftr as (
 ),
 
 sections as (
-    select file_id, section_id, name from raw_sections
+    select lot, file_id, section_id, name from raw_sections
 ),
 
-tsr as (
-    select
-        file_id,
-        test_num,
-        max(nullif(test_nam, '')) as tsr_name,
-        max(nullif(seq_name, '')) as tsr_block
-    from raw_tsr
-    group by file_id, test_num
-),
-
-rules as (
-    select * from raw_block_rules
+tests as (
+    select * from result_tests
 ),
 
 ptr_rows as (
     select
-        file_id, part_index, head_num, site_num, test_num, test_txt, section_id, rec_index,
-        'PTR' as record, null::integer as element, result::double as value, test_flg,
-        lo_limit::double as lo_limit, hi_limit::double as hi_limit, units
+        lot, file_id, part_index, head_num, site_num, test_num, test_txt, section_id,
+        rec_index, 'PTR' as record, null::integer as element, result::double as value,
+        test_flg, lo_limit::double as lo_limit, hi_limit::double as hi_limit, units
     from ptr
 ),
 
 mpr_rows as (
     select
-        file_id, part_index, head_num, site_num, test_num, test_txt, section_id, rec_index,
-        'MPR' as record, unnest(range(len(rtn_rslt)))::integer as element,
+        lot, file_id, part_index, head_num, site_num, test_num, test_txt, section_id,
+        rec_index, 'MPR' as record, unnest(range(len(rtn_rslt)))::integer as element,
         unnest(rtn_rslt)::double as value, test_flg,
         lo_limit::double as lo_limit, hi_limit::double as hi_limit, units
     from mpr
@@ -58,9 +50,10 @@ mpr_rows as (
 
 ftr_rows as (
     select
-        file_id, part_index, head_num, site_num, test_num, test_txt, section_id, rec_index,
-        'FTR' as record, null::integer as element, null::double as value, test_flg,
-        null::double as lo_limit, null::double as hi_limit, null::varchar as units
+        lot, file_id, part_index, head_num, site_num, test_num, test_txt, section_id,
+        rec_index, 'FTR' as record, null::integer as element, null::double as value,
+        test_flg, null::double as lo_limit, null::double as hi_limit,
+        null::varchar as units
     from ftr
 ),
 
@@ -72,44 +65,16 @@ all_rows as (
     select * from ftr_rows
 ),
 
-first_names as (
-    select file_id, record, test_num, arg_min(test_txt, rec_index) as first_name
-    from all_rows
-    where test_txt <> ''
-    group by file_id, record, test_num
-),
-
-tests as (
-    select distinct r.file_id, r.record, r.test_num,
-           coalesce(n.first_name, t.tsr_name) as test_name,
-           t.tsr_block
-    from all_rows as r
-    left join first_names as n
-        on n.file_id = r.file_id and n.record = r.record and n.test_num = r.test_num
-    left join tsr as t on t.file_id = r.file_id and t.test_num = r.test_num
-),
-
-test_blocks as (
-    select
-        tests.file_id, tests.record, tests.test_num, tests.test_name,
-        coalesce(any_value(tests.tsr_block), arg_min(rules.block, rules.priority))
-            as fallback_block
-    from tests
-    left join rules
-        on (rules.kind = 'tests' and tests.test_num between rules.lo and rules.hi)
-        or (rules.kind = 'names' and tests.test_name glob rules.pattern)
-    group by tests.file_id, tests.record, tests.test_num, tests.test_name
-),
-
 final as (
     select
         r.file_id,
+        r.lot as lot_id,
         r.part_index,
         r.head_num::integer as head,
         r.site_num::integer as site,
         r.test_num::bigint as test_num,
-        coalesce(nullif(r.test_txt, ''), tb.test_name) as test_name,
-        coalesce(s.name, tb.fallback_block, 'unassigned') as block,
+        coalesce(nullif(r.test_txt, ''), t.test_name) as test_name,
+        coalesce(s.name, t.fallback_block, 'unassigned') as block,
         r.record,
         r.element,
         r.value,
@@ -120,9 +85,11 @@ final as (
         r.rec_index,
         r.section_id
     from all_rows as r
-    left join test_blocks as tb
-        on tb.file_id = r.file_id and tb.record = r.record and tb.test_num = r.test_num
-    left join sections as s on s.file_id = r.file_id and s.section_id = r.section_id
+    left join tests as t
+        on t.lot_id = r.lot and t.file_id = r.file_id and t.record = r.record
+        and t.test_num = r.test_num
+    left join sections as s
+        on s.lot = r.lot and s.file_id = r.file_id and s.section_id = r.section_id
 )
 
 select * from final

@@ -10,6 +10,7 @@ raw as (
 final as (
     select
         file_id,
+        lot as lot_id,
         section_id,
         name,
         parent_id,

@@ -6,6 +6,7 @@
 -- it ran on two or more sites and every site after the first waited. is_serialized: in at
 -- least 90 % of those touchdowns. mean_wait_ms: the mean idle time of the waiting sites.
 -- Key: (lot_id, block).
+-- materialized: lot
 with
 
 mt as (

@@ -12,10 +12,12 @@ gdr as (
 ),
 
 final as (
-    select file_id, rec_index, touchdown, section_id, 'DTR' as record, text_dat as text
+    select file_id, lot as lot_id, rec_index, touchdown, section_id, 'DTR' as record,
+           text_dat as text
     from dtr
     union all
-    select file_id, rec_index, touchdown, section_id, 'GDR', array_to_string(gen_data, ' ')
+    select file_id, lot, rec_index, touchdown, section_id, 'GDR',
+           array_to_string(gen_data, ' ')
     from gdr
 )
 

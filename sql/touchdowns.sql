@@ -2,6 +2,7 @@
 -- Key: (file_id, touchdown). touchdown_ms: the last marker's end when the log has timing
 -- markers (the touchdown's own clock), else the slowest site's part time (PRR.TEST_T, or
 -- the timing CSV's last block end). method says which.
+-- materialized: file
 with
 
 parts as (

@@ -3,6 +3,7 @@
 -- parts tested, in ms. Per-site TSRs where a log has them; else the HEAD_NUM 255 summary,
 -- pooled (site null). A test's block is the one its results were assigned (section or
 -- rule), else the TSR's own SEQ_NAME, else 'unassigned'.
+-- materialized: lot
 with
 
 tsr as (
@@ -10,9 +11,7 @@ tsr as (
 ),
 
 test_blocks as (
-    select file_id, test_num, mode(block) as block
-    from results
-    group by file_id, test_num
+    select file_id, test_num, block from test_blocks
 ),
 
 parts as (

@@ -15,6 +15,7 @@ wrr as (
 final as (
     select
         wir.file_id,
+        wir.lot as lot_id,
         wir.head_num::integer as head,
         wir.seq::integer as wafer_seq,
         coalesce(nullif(wir.wafer_id, ''), nullif(wrr.wafer_id, '')) as wafer_id,

@@ -85,6 +85,24 @@ class Ingested:
             self._con = None
 
 
+def raw_parquet(store_root: Path, table: str) -> pl.DataFrame:
+    """One stored table as any Parquet reader sees it (Hive partitions ``lot`` and
+    ``file_id`` from the path), limited to the logs the registry lists as committed."""
+    newest: dict[str, int] = {}  # each lot's newest generation lists the logs that count
+    for d in (store_root / "derived").glob("lot=*/gen=*"):
+        if d.parent.name != "lot=_schema":
+            newest[d.parent.name] = max(newest.get(d.parent.name, 0), int(d.name[4:]))
+    listed = pl.concat([pl.read_parquet(store_root / "derived" / lot / f"gen={gen}" /
+                                        "lot_files" / "part-0.parquet")
+                        for lot, gen in newest.items()])
+    keep = listed.filter(pl.col("status").is_in(["ok", "partial"]))["file_id"]
+    df = pl.read_parquet(store_root / "tables" / table / "*" / "*" / "*.parquet",
+                         hive_partitioning=True,
+                         hive_schema={"lot": pl.String, "file_id": pl.String},
+                         missing_columns="insert")
+    return df.filter(pl.col("file_id").is_in(keep.implode()))
+
+
 def ingest_into(root: Path, *paths: Path | str, workers: int | None = None) -> Ingested:
     store = Store(root)
     report = store.ingest([str(p) for p in paths], workers=workers)

@@ -232,7 +232,19 @@ def test_sql_table_is_aligned_with_a_row_count(cli, gz_store: Ingested) -> None:
     assert len({len(ln) for ln in lines[:-1]}) == 1  # right-aligned numbers: equal widths
 
 
+@pytest.mark.parametrize("command", [
+    ["sql", "select 1"], ["times"], ["sites"], ["plan", "--blocks", str(SAMPLES / "blocks.toml")],
+    ["draft-map", "--out", "x.toml"], ["report", "--out", "r"]])
+def test_read_commands_refuse_a_path_with_no_store(cli, tmp_path: Path,
+                                                   command: list[str]) -> None:
+    """A typo in --store must not look like success: exit 2, one line, nothing made."""
+    r = cli(command[0], "--store", tmp_path / "no" / "such", *command[1:])
+    assert r.code == 2 and len(r.err_lines) == 1 and "no store" in r.err, r.err
+    assert not (tmp_path / "no").exists()
+
+
 def test_sql_on_an_empty_store_answers(cli, tmp_path: Path) -> None:
+    assert cli("ingest", SAMPLES / "blocks.toml", "--store", tmp_path / "fresh").code == 3
     r = cli("sql", "--store", tmp_path / "fresh", "--format", "json",
             "select count(*) as n from parts")
     assert (r.code, r.err) == (0, "")
@@ -288,6 +300,7 @@ def test_sql_csv_neutralises_spreadsheet_formulas(cli, tmp_path) -> None:  # typ
     import csv
     import io
 
+    cli("ingest", SAMPLES / "blocks.toml", "--store", tmp_path / "s")
     res = cli("sql", "--store", tmp_path / "s", "--format", "csv",
               "select '=1+1' as a, '-x' as b, 'ok' as c, -3 as n")
     assert res.code == 0, res.err

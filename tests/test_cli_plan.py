@@ -10,13 +10,23 @@ from __future__ import annotations
 import contextlib
 import io
 import json
+import re
 from pathlib import Path
 
 import pytest
 
 from pipeline.blockmap import parse_block_map
 from pipeline.plan import CAUTIONS
-from tests.conftest import MARKERS_GZ, SAMPLES, TIMING_CSV, Ingested, ingest_into, truth
+from tests.conftest import (
+    MARKERS_GZ,
+    SAMPLES,
+    TIMING_CSV,
+    TOTALS_ONLY,
+    Ingested,
+    file_truth,
+    ingest_into,
+    truth,
+)
 
 BLOCKS = SAMPLES / "blocks.toml"
 LOT = "PF4-L0231"
@@ -98,7 +108,7 @@ def test_plan_text_shows_schedule_candidates_whatifs_and_cautions(sample_store: 
 
 
 @pytest.mark.parametrize(("args", "code", "needle"), [
-    (["--lot", "NO-SUCH-LOT"], 3, "NO-SUCH-LOT"),
+    (["--lot", "NO-SUCH-LOT"], 2, "NO-SUCH-LOT"),  # an unknown lot is a bad argument
     (["--time-limit", "0"], 2, "--time-limit"),
     (["--percentile", "p99"], 2, "p99"),
 ])
@@ -118,25 +128,50 @@ def test_plan_bad_block_map_is_one_line(sample_store: Ingested, cli, tmp_path: P
     assert missing.code == 2 and len(missing.err_lines) == 1
 
 
-def test_plan_on_an_empty_store_says_so(cli, tmp_path: Path) -> None:
+def test_plan_without_a_store_is_a_usage_error(cli, tmp_path: Path) -> None:
+    r = cli("plan", "--store", tmp_path / "nowhere", "--blocks", BLOCKS)
+    assert r.code == 2 and len(r.err_lines) == 1 and "no store" in r.err
+    assert not (tmp_path / "nowhere").exists()  # a read never creates a store
+
+
+def test_plan_on_a_store_without_parts_says_so(cli, tmp_path: Path) -> None:
+    ingest_into(tmp_path / "empty", BLOCKS).close()  # a store that holds one rejected file
     r = cli("plan", "--store", tmp_path / "empty", "--blocks", BLOCKS)
     assert r.code == 3 and len(r.err_lines) == 1 and "no parts" in r.err
 
 
-def test_without_lot_the_lot_with_most_parts_is_planned(cli, tmp_path: Path) -> None:
-    ing = ingest_into(tmp_path / "store", SAMPLES / MARKERS_GZ, SAMPLES / TIMING_CSV)
+def test_without_lot_the_best_timed_lot_is_planned(cli, tmp_path: Path) -> None:
+    """Markers beat the timing CSV even on fewer parts; then the most parts decide."""
+    ing = ingest_into(tmp_path / "store", SAMPLES / MARKERS_GZ, SAMPLES / TIMING_CSV,
+                      SAMPLES / TOTALS_ONLY)
     parts = {lot: n for lot, n in ing.sql(
         "select lot_id, count(*) from parts group by lot_id").iter_rows()}
     ing.close()
+    marker_lot = file_truth(MARKERS_GZ)["lot_id"]
+    assert parts[marker_lot] < max(parts.values())  # the choice is not by parts alone
     r = cli("plan", "--store", tmp_path / "store", "--blocks", BLOCKS, "--json",
             "--time-limit", "2")
     assert r.code == 0, r.err
     doc = json.loads(r.out)
-    assert doc["lot_id"] == max(parts, key=lambda k: (parts[k], k))
-    assert any("most parts" in n for n in doc["notes"])
+    assert doc["lot_id"] == marker_lot
+    assert any("best timing source" in n and marker_lot in n for n in doc["notes"])
 
 
 # ------------------------------------------------------------------ draft-map
+
+
+def test_draft_map_without_lot_drafts_from_a_marker_lot(sample_store: Ingested, cli,
+                                                      tmp_path: Path) -> None:
+    """Not the lot with the most parts (the one-site estimate-only lot): markers first."""
+    out = tmp_path / "draft.toml"
+    r = cli("draft-map", "--store", sample_store.store.path, "--out", out)
+    assert r.code == 0, r.err
+    chosen = re.search(r"blocks from lot (\S+);", r.out)
+    assert chosen, r.out
+    method = sample_store.sql("select distinct method from block_times where lot_id = ?",
+                              [chosen.group(1)]).item()
+    assert method == "marker"
+    assert "best timing source" in r.out  # and it says which it chose
 
 
 def test_draft_map_infers_pin_resources(sample_store: Ingested, cli, tmp_path: Path) -> None:

@@ -164,6 +164,10 @@ def per_file_counts(con: duckdb.DuckDBPyConnection,
             for v in views}
 
 
+# Views of which logs count (the registry): compared by content in fingerprint's "files".
+REGISTRY_VIEWS = ("raw_files", "raw_lot_files", "raw_committed")
+
+
 def fingerprint(store_dir: Path) -> dict[str, Any]:
     """What a store holds, independent of when and where it was made: the registry by
     content (sha256, status, counts) and, per raw table and file, the row count and the
@@ -175,7 +179,7 @@ def fingerprint(store_dir: Path) -> dict[str, Any]:
             "from raw_files").fetchall())
         tables = {}
         for v in file_views(con):
-            if v.startswith("raw_") and v != "raw_files":
+            if v.startswith("raw_") and v not in REGISTRY_VIEWS:
                 for row in con.execute(
                         f"select file_id, count(*), sum(hash(columns(* exclude (file_id)))) "
                         f"from {v} group by all").fetchall():
@@ -556,7 +560,7 @@ def test_names_with_quotes_and_sql_come_back_exactly(evil_store: Path,
     assert [x["lot_id"] for x in json.loads(r.out)] == sorted(EVIL_LOTS)
     r = cli("sql", "--store", evil_store, "--format", "csv",
             "select lot_id, test_name, part_id from results join parts "
-            "using (file_id, part_index) order by all")
+            "using (lot_id, file_id, part_index) order by all")
     rows = list(csv.DictReader(io.StringIO(r.out)))
     # CSV text that a spreadsheet would run as a formula comes back with a leading quote
     # (the documented guard, report.text.csv_cell); everything else exactly.
@@ -584,9 +588,8 @@ def test_lot_options_are_parameters_not_sql(evil_store: Path, lot: str,
 def test_unknown_hostile_lot_is_a_clean_error(evil_store: Path,
                                               cli: Callable[..., CliResult]) -> None:
     r = cli("times", "--store", evil_store, "--lot", "x' or '1'='1")
-    assert r.code == 3 and r.err_lines == [
-        "tandem: lot \"x' or '1'='1\" has no block times (see `tandem sql ... \"select "
-        "distinct lot_id from lots\"`)"]
+    assert r.code == 2 and len(r.err_lines) == 1  # an unknown lot is a bad argument
+    assert r.err_lines[0].startswith("tandem: lot \"x' or '1'='1\" is not in the store")
 
 
 def test_store_path_with_a_comma_is_refused(tmp_path: Path,
@@ -813,26 +816,47 @@ class KillLog:
     notes: list[str] = field(default_factory=list)
 
 
+def _registered(store_dir: Path) -> tuple[set[str], dict[str, int]]:
+    """Committed file ids, and each lot's current generation, from the registry."""
+    from pipeline.store.registry import Registry
+
+    reg = Registry.read(store_dir)
+    return {f for f, st in zip(reg.table.column("file_id").to_pylist(),
+                               reg.table.column("status").to_pylist(), strict=True)
+            if st in ("ok", "partial")}, reg.lots()
+
+
 def _orphans(store_dir: Path) -> set[str]:
-    tables = store_dir / "tables"
-    if not tables.is_dir():
+    """Folders a crashed commit left (a log's tables not registered, or a generation of a
+    lot's derived tables that is not the current one and not awaiting removal)."""
+    if not (store_dir / "tables").is_dir():
         return set()
-    registered = {d.name for d in (tables / "files").glob("file_id=*")
-                  if (d / "part-0.parquet").exists()}
-    return {d.name for t in tables.iterdir() if t.name != "files" for d in t.glob("file_id=*")
-            if d.name != "file_id=_schema" and d.name not in registered}
+    files, gens = _registered(store_dir)
+    out = {str(d) for d in (store_dir / "tables").glob("*/lot=[!_]*/file_id=*")
+           if d.name.removeprefix("file_id=") not in files}
+    gc = (store_dir / "meta" / "gc.json")
+    pending = {item["path"] for item in json.loads(gc.read_text())["items"]} \
+        if gc.exists() else set()
+    from pipeline.store.layout import lot_from_key
+
+    for d in (store_dir / "derived").glob("*/lot=[!_]*/gen=*"):
+        lot = lot_from_key(d.parent.name.removeprefix("lot="))
+        if int(d.name.removeprefix("gen=")) != gens.get(lot) and \
+                str(d.relative_to(store_dir)) not in pending:
+            out.add(str(d))
+    return out
 
 
 def _wait_for_commit(store_dir: Path, proc: subprocess.Popen[str], deadline: float) -> bool:
     """Spin until a table folder of a log not yet registered appears (a commit is under
-    way: tables are renamed in first, the registry entry comes last)."""
+    way: tables are renamed in first, the registry comes last)."""
     far = store_dir / "tables" / "far"
-    known = {d.name for d in far.glob("file_id=*")} if far.is_dir() else set()
     while time.monotonic() < deadline and proc.poll() is None:
         if far.is_dir():
-            for d in far.glob("file_id=[!_]*"):  # not file_id=_schema
-                if d.name not in known and not (store_dir / "tables" / "files" / d.name /
-                                                "part-0.parquet").exists():
+            new = [d for d in far.glob("lot=[!_]*/file_id=*")]
+            if new and (store_dir / "meta" / "registry.parquet").exists():
+                files, _ = _registered(store_dir)
+                if any(d.name.removeprefix("file_id=") not in files for d in new):
                     return True
     return False
 
@@ -841,17 +865,39 @@ def _check_after_kill(store_dir: Path, ref: dict[str, dict[str, int]],
                       views: list[str]) -> None:
     """Every view shows only complete, registered files: a registered file has all of its
     rows in every view, and no view shows a row of a file that is not registered."""
+    if not (store_dir / "store.json").exists():  # killed before the store was made
+        assert not (store_dir / "meta" / "registry.parquet").exists() or \
+            not _registered(store_dir)[0]
+        return
     con = Store(store_dir).connect()
     try:
         registered = {f for (f,) in con.execute(
             "select file_id from files where status in ('ok', 'partial')").fetchall()}
         got = per_file_counts(con, views)
+        lots = lot_fingerprints(con)
     finally:
         con.close()
     for v in views:
         assert set(got[v]) <= registered, (v, set(got[v]) - registered)
         for f in registered:
             assert got[v].get(f, 0) == ref[v].get(f, 0), (v, f, got[v].get(f), ref[v].get(f))
+    # each lot's aggregates are those of a clean ingest of its (one) log, or absent
+    want = ref["_lots"]
+    assert set(lots) <= set(want) and all(lots[k] == want[k] for k in lots), lots
+
+
+LOT_VIEWS = ("block_times", "reconciliation", "site_summary", "touchdowns")
+
+
+def lot_fingerprints(con: duckdb.DuckDBPyConnection) -> dict[tuple[str, str], Any]:
+    """(view, lot) -> row count and a content hash of the lot's derived aggregates."""
+    out = {}
+    for v in LOT_VIEWS:
+        for row in con.execute(
+                f"select lot_id, count(*), sum(hash(columns(* exclude (lot_id)))) "
+                f"from {v} group by all").fetchall():
+            out[(v, row[0])] = row[1:]
+    return out
 
 
 @dataclass
@@ -869,11 +915,12 @@ class Reference:
             self._fp = fingerprint(self.store)
         return self._fp
 
-    def counts(self, views: list[str]) -> dict[str, dict[str, int]]:
+    def counts(self, views: list[str]) -> dict[str, Any]:
         key = tuple(views)
         if key not in self._counts:
             con = Store(self.store).connect()
-            self._counts[key] = per_file_counts(con, views)
+            self._counts[key] = {**per_file_counts(con, views),
+                                 "_lots": lot_fingerprints(con)}  # type: ignore[dict-item]
             con.close()
         return self._counts[key]
 
@@ -881,9 +928,8 @@ class Reference:
 def _left_to_do(store_dir: Path, inputs: list[Path]) -> tuple[float, bool]:
     """The share of the input bytes not registered yet, and whether an STDF log (which
     has a FAR table, see _wait_for_commit) is among them."""
-    files = store_dir / "tables" / "files"
     done = set()
-    if files.is_dir():
+    if (store_dir / "meta" / "registry.parquet").exists():
         done = set(Store(store_dir).registry().column("path").to_pylist())
     left = [p for p in inputs if str(p) not in done]
     share = sum(p.stat().st_size for p in left) / sum(p.stat().st_size for p in inputs)

@@ -32,6 +32,7 @@ from tests.conftest import (
     Ingested,
     file_truth,
     ingest_into,
+    raw_parquet,
     truth,
 )
 
@@ -97,13 +98,7 @@ def test_view_not_null_columns(sample_store: Ingested, view: str) -> None:
 # -- recomputed from the raw Parquet with polars ---------------------------------------------
 def raw(ing: Ingested, table: str) -> pl.DataFrame:
     """One stored table, as any Parquet reader sees it, limited to committed logs."""
-    root = ing.store.path / "tables"
-    files = pl.read_parquet(root / "files" / "*" / "*.parquet", hive_partitioning=True,
-                            hive_schema={"file_id": pl.String})
-    keep = files.filter(pl.col("status").is_in(["ok", "partial"]))["file_id"]
-    df = pl.read_parquet(root / table / "*" / "*.parquet", hive_partitioning=True,
-                         hive_schema={"file_id": pl.String}, missing_columns="insert")
-    return df.filter(pl.col("file_id").is_in(keep.implode()))
+    return raw_parquet(ing.store.path, table)
 
 
 def test_parts_per_file_and_site_match_raw_parquet(sample_store: Ingested) -> None:

@@ -2,8 +2,9 @@
 the measured touchdown and index time. One DuckDB connection for all of it (opening one
 costs about a second).
 
-Lot choice: with ``lot=None`` the lot with the most parts is planned (ties: the first
-lot id), and ``Measured.notes`` says so; ``--lot`` chooses another.
+Lot choice: with ``lot=None`` the lot timed by the best source is planned (markers, then
+the timing CSV, then TSR summaries, then the estimate), the one with the most parts among
+those (ties: the first lot id), and ``Measured.notes`` says so; ``--lot`` chooses another.
 
 Program order is measured: each block's mean rank among the blocks of a part, ranked by
 the record where the block's first result sits (STDF) or by start time (timing CSV).
@@ -64,24 +65,32 @@ class _Session:
         self.con.close()
 
 
+METHOD_RANK = {"marker": 1, "csv": 2, "tsr": 3, "estimate": 4}
+
+
 def choose_lot(db: Any, lot: str | None) -> tuple[str, int, str | None]:
-    """(lot_id, parts, a note when the choice was ours)."""
-    lots = db.sql("""select lot_id, count(*) as parts from parts group by lot_id
-                     order by parts desc, lot_id""")
+    """(lot_id, parts, a note when the choice was ours). Reads one small summary per lot
+    (only that lot's with ``lot`` given). UsageError for a lot the store does not hold."""
+    from ..timing import check_lot
+
+    check_lot(db, lot)
+    where, params = ("where lot_id = ?", [lot]) if lot is not None else ("", [])
+    lots = db.sql(f"""select lot_id, parts, method,
+                             case method {' '.join(f"when '{m}' then {r}"
+                                                   for m, r in METHOD_RANK.items())}
+                                 else 9 end as rank
+                      from site_summary {where}
+                      order by rank, parts desc, lot_id""", params)
     if lots.is_empty():
-        raise InputError("the store holds no parts: ingest logs first (tandem ingest ...)")
-    parts = dict(zip(lots["lot_id"].to_list(), lots["parts"].to_list(), strict=True))
-    if lot is not None:
-        if lot not in parts:
-            raise InputError(f"lot {lot!r} is not in the store (lots: "
-                             f"{', '.join(sorted(parts))})")
-        return lot, int(parts[lot]), None
-    first = lots["lot_id"][0]
+        raise InputError("the store holds no parts: ingest logs first (tandem ingest ...)"
+                         if lot is None else f"lot {lot!r} has no parts")
+    first, parts, method, _ = lots.row(0)
     note = None
-    if len(parts) > 1:
-        note = (f"{len(parts)} lots in the store: planned {first}, the one with the most "
-                f"parts ({parts[first]}); choose another with --lot")
-    return first, int(parts[first]), note
+    if lot is None and lots.height > 1:
+        note = (f"{lots.height} lots in the store: chose {first}, timed by {method} with "
+                f"{parts} parts (the best timing source, then the most parts); choose "
+                f"another with --lot")
+    return first, int(parts), note
 
 
 def measure_lot(store: Store, lot: str | None = None, percentile: str = "mean") -> Measured:
@@ -95,14 +104,8 @@ def measure_lot(store: Store, lot: str | None = None, percentile: str = "mean") 
 
 
 def _measure(db: _Session, lot: str | None, column: str) -> Measured:
-    from ..timing import _index_ms, refresh_estimates
-
     lot_id, parts, choice = choose_lot(db, lot)
     rows = _block_rows(db, lot_id)
-    if rows.is_empty():  # estimates are computed on demand: try once
-        refresh_estimates(db.store)
-        db.reopen()
-        rows = _block_rows(db, lot_id)
     if rows.is_empty():
         raise InputError(f"lot {lot_id!r} has no block times (no timing markers, timing CSV, "
                          "TSR summaries, or part times the estimate can use)")
@@ -110,14 +113,15 @@ def _measure(db: _Session, lot: str | None, column: str) -> Measured:
     sites = tuple(int(s) for s in db.sql(
         "select distinct site from parts where lot_id = ? and site is not null order by site",
         [lot_id])["site"].to_list()) or (1,)
-    td = db.sql("""select count(*) as n, avg(touchdown_ms) as ms, sum(touchdown_ms) as total
-                   from touchdowns where lot_id = ?""", [lot_id]).row(0, named=True)
-    n = int(td["n"] or 0)
-    index = _index_ms(db, lot_id, float(td["total"] or 0.0), n) if n else None  # type: ignore
+    td = db.sql("""select touchdowns as n, touchdown_ms as ms, index_ms from site_summary
+                   where lot_id = ?""", [lot_id])
+    n = int(td["n"][0]) if not td.is_empty() else 0
+    ms = float(td["ms"][0]) if n else None
+    index = td["index_ms"][0] if n else None
     notes = [x for x in (choice, fallback) if x]
     return Measured(lot_id, sites, tuple(_program_order(db, lot_id, list(times))), times,
                     column, ", ".join(sorted(set(rows["method"].to_list()))), parts, n,
-                    None if td["ms"] is None else float(td["ms"]), index, tuple(notes))
+                    ms, index, tuple(notes))
 
 
 def _block_rows(db: _Session, lot_id: str) -> pl.DataFrame:
@@ -150,10 +154,9 @@ def _times(rows: pl.DataFrame, column: str) -> tuple[dict[str, dict[int | None, 
 def _program_order(db: _Session, lot_id: str, blocks: list[str]) -> list[str]:
     ranks = db.sql("""
         with stdf as (
-            select pb.block, row_number() over (
-                       partition by pb.file_id, pb.part_index order by pb.first_rec) as rk
-            from part_blocks pb join parts p using (file_id, part_index)
-            where p.lot_id = ?
+            select block, row_number() over (
+                       partition by file_id, part_index order by first_rec) as rk
+            from part_blocks where lot_id = ?
         ), csv as (
             select block, row_number() over (
                        partition by file_id, touchdown, site, part_id order by start_ms) as rk

@@ -221,7 +221,8 @@ def part_times(data: ReportData) -> Figure | None:
 
 
 def lots_trend(data: ReportData) -> Figure | None:
-    df = data.drift
+    df = data.drift  # blocks only: a group's sum (drift's "group" rows) has no colour
+    df = df.filter(pl.col("kind") == "block") if not df.is_empty() else df
     if df.is_empty() or df["lot_id"].n_unique() < 2:
         return None
     lot_order = [x for x in data.lots["lot_id"].to_list() if x in set(df["lot_id"].to_list())]

@@ -1,10 +1,10 @@
 """What a report shows, gathered once from the store (and the plan, when there is one).
 
 Everything comes from the public timing API and the catalog's views on one DuckDB
-connection (opening one costs about a second, so each view is read once). The report
-reads every lot and focuses on one — the plan's, else ``--lot``, else the lot the
-planner would choose (the one with the most parts): the Pareto, the site charts and the
-plan are that lot's; the tables and the lot-to-lot chart cover them all.
+connection: reads of what was derived when the logs landed. The report reads every lot's
+small aggregates and focuses on one — the plan's, else ``--lot``, else the lot the
+planner would choose (the best timing source, then the most parts): the Pareto, the site
+charts and the plan are that lot's; the tables and the lot-to-lot chart cover them all.
 """
 
 from __future__ import annotations
@@ -16,20 +16,14 @@ import polars as pl
 
 from .. import timing
 from ..errors import InputError
+from ..plan.measure import choose_lot
 from ..store import Store, to_frame
-
-# Views the report reads many times, cheapest-first in dependency order. Each is a
-# query over Parquet that DuckDB recomputes on every read (block_times over markers costs
-# about a second); a temporary table of the same name shadows the view for the rest of the
-# session — views above it then read the table — so each is computed once. The report is
-# a snapshot of the store at one moment anyway.
-SNAPSHOT = ("parts", "lots", "touchdowns", "marker_times", "part_spans", "block_times_all",
-            "block_times", "reconciliation", "serialized_blocks")
 
 
 class Session:
-    """One open connection over a store's views, with the heavy ones computed once;
-    quacks like ``Store`` for the timing helpers, which only call ``.sql``."""
+    """One open connection over a store's views (one snapshot of the store); quacks like
+    ``Store`` for the timing helpers, which only call ``.sql``. Every figure is a read of
+    what was derived when the logs landed."""
 
     def __init__(self, store: Store):
         self.store = store
@@ -38,8 +32,6 @@ class Session:
         # sit exactly on a rounding boundary (integer microseconds over a round number of
         # parts) would then round either way from run to run. The data here is small.
         self.con.execute("set threads = 1")
-        for view in SNAPSHOT:
-            self.con.execute(f"create temp table {view} as select * from main.{view}")
 
     def sql(self, query: str, params: list[Any] | None = None) -> pl.DataFrame:
         return to_frame(self.con.sql(query, params=params or None))
@@ -76,8 +68,9 @@ class ReportData:
         """Every block name the report shows, largest share of the focus lot first: one
         order, so each block keeps one colour in every chart."""
         names = self.focus_blocks["block"].to_list()
-        for col in (self.blocks["block"], self.drift["block"] if not self.drift.is_empty()
-                    else pl.Series([], dtype=pl.String)):
+        drifted = self.drift.filter(pl.col("kind") == "block")["block"] \
+            if not self.drift.is_empty() else pl.Series([], dtype=pl.String)
+        for col in (self.blocks["block"], drifted):
             names += [b for b in col.to_list() if b not in names]
         for row in (self.plan or {}).get("schedule", []):
             if row["block"] not in names:
@@ -88,10 +81,9 @@ class ReportData:
 def gather(store: Store, lot: str | None, plan: dict[str, Any] | None,
            blocks_file: str | None) -> ReportData:
     """Read everything a report needs. ``plan`` is the planner's dict (or None)."""
-    problems = timing.refresh_estimates(store)
     db = Session(store)
     try:
-        focus = plan["lot_id"] if plan else _choose_lot(db, lot)
+        focus = plan["lot_id"] if plan else choose_lot(db, lot)[0]
         scope = None  # every lot: --lot chooses the focus, not what is read
         data = ReportData(
             lot_id=focus,
@@ -103,7 +95,7 @@ def gather(store: Store, lot: str | None, plan: dict[str, Any] | None,
             estimates=_estimates(db, scope),
             unattributed=timing.unattributed(db, scope),  # type: ignore[arg-type]
             sites=timing.site_summaries(db, scope),  # type: ignore[arg-type]
-            warnings=problems + timing.warnings(db, scope),  # type: ignore[arg-type]
+            warnings=timing.warnings(db, scope),  # type: ignore[arg-type]
             plan=plan, blocks_file=blocks_file)
     finally:
         db.close()
@@ -113,35 +105,22 @@ def gather(store: Store, lot: str | None, plan: dict[str, Any] | None,
     return data
 
 
-def _choose_lot(db: Session, lot: str | None) -> str:
-    """The planner's rule (pipeline/plan/measure.py): the lot with the most parts."""
-    lots = db.sql("""select lot_id, count(*) as parts from parts group by lot_id
-                     order by parts desc, lot_id""")
-    if lots.is_empty():
-        raise InputError("the store holds no parts: ingest logs first (tandem ingest ...)")
-    names = lots["lot_id"].to_list()
-    if lot is not None and lot not in names:
-        raise InputError(f"lot {lot!r} is not in the store (lots: {', '.join(sorted(names))})")
-    return lot or names[0]
-
-
 def _lots(db: Session, lot: str | None) -> pl.DataFrame:
     where, params = ("where p.lot_id = ?", [lot]) if lot else ("", [])
     return db.sql(f"""
         with p as (
-            select lot_id, count(*) as parts, count(distinct site) as sites,
-                   count(distinct file_id) as files
-            from parts group by lot_id
+            select lot_id, parts, sites from site_summary
         ),
         l as (
             select lot_id, any_value(part_type) as part_type, any_value(program) as program,
                    any_value(program_rev) as program_rev,
-                   any_value(tester_type) as tester_type, min(started_at) as started_at
+                   any_value(tester_type) as tester_type, min(started_at) as started_at,
+                   count(distinct file_id) as files
             from lots group by lot_id
         ),
         m as (select distinct lot_id, method from block_times)
         select p.lot_id, l.part_type, l.program, l.program_rev, l.tester_type,
-               l.started_at, m.method, p.files, p.parts, p.sites
+               l.started_at, m.method, l.files, p.parts, p.sites
         from p left join l using (lot_id) left join m using (lot_id)
         {where}
         order by l.started_at nulls last, p.lot_id""", params)
