@@ -50,12 +50,14 @@ def pool_runner(pool: Executor) -> Runner:
 
 
 # -- block rules -----------------------------------------------------------------------
+UNSECTIONED = """
+select lot_id, test_num, test_name, tsr_block, fallback_block
+from result_tests where unsectioned_records > 0
+"""
+
 AFFECTED = """
 with new_rules as (select * from _new_rules),
-tests as (
-    select lot_id, test_num, test_name, tsr_block, fallback_block, unsectioned_records
-    from result_tests where unsectioned_records > 0
-),
+tests as (select * from _tests),
 placed as (
     select t.lot_id, t.test_num, t.test_name, any_value(t.fallback_block) as old_block,
            coalesce(any_value(t.tsr_block), arg_min(r.block, r.priority)) as new_block
@@ -89,11 +91,15 @@ def set_block_rules(store: Store, blockmap: Any, runner: Runner | None = None) -
     SEQ_NAME places go by them), re-deriving at once exactly the lots whose blocks they
     change. Returns those lots."""
     table = rules_table(blockmap)
+    import duckdb
+
     with store.writer():
         before = store.snapshot()
-        con = store.connect()
+        tests = store.sql(UNSECTIONED).to_arrow()  # small: one row per test number
+        con = duckdb.connect(":memory:")  # the catalog is read-only: match the rules here
         try:
             con.register("_new_rules", table)
+            con.register("_tests", tests)
             lots = [r[0] for r in con.execute(AFFECTED).fetchall()]
         finally:
             con.close()

@@ -23,7 +23,7 @@ from typing import TYPE_CHECKING, Any
 
 from .. import __version__
 from ..errors import StoreError, UsageError
-from .layout import FORMAT, LOCK, META, STATE, STORE_FILE, TABLES
+from .layout import FORMAT, LOCK, META, RULES, STATE, STORE_FILE, TABLES
 
 if TYPE_CHECKING:  # duckdb, polars and pyarrow load only when needed
     import duckdb
@@ -201,8 +201,9 @@ class Store:
         self._registry = registry
         # catalog.duckdb depends only on the views, not on the data: (re)write it
         # alongside the work instead of after it.
-        catalog = threading.Thread(target=self._write_catalog_quietly, daemon=True)
-        if not upgrading:
+        catalog = None
+        if not upgrading:  # an upgrade writes it last, once the store is current
+            catalog = threading.Thread(target=self._write_catalog_quietly, daemon=True)
             catalog.start()
         self._writing = True
         try:
@@ -210,7 +211,7 @@ class Store:
         finally:
             self._writing = False
             self._registry = None
-            if catalog.is_alive() or catalog.ident is not None:
+            if catalog is not None:
                 catalog.join()
             collect_garbage(self.path)
 
@@ -252,7 +253,7 @@ class Store:
         return sha[:16]
 
     def rules_path(self, sha: str | None) -> Path | None:
-        return None if not sha else self.path / META / f"rules-{sha}.parquet"
+        return None if not sha else self.path / RULES / f"{sha}.parquet"
 
     def rules(self) -> pa.Table | None:
         """The block-map rules the derived tables follow (None: none given)."""
