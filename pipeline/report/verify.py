@@ -18,8 +18,10 @@ from typing import Any
 import altair as alt
 
 from .. import __version__
+from ..verify import CAUTIONS as VERIFY_CAUTIONS
 from .charts import AMBER, BY_RANK, CORAL, MIST, SLATE, TEAL, WIDTH, Figure, _title, theme
 from .facts import Table, num
+from .html import _figure
 from .text import CAUTION_HEADLINE, CAUTIONS, html_text, md_text
 
 VERDICT_COLOURS = {"same": SLATE, "shifted": CORAL, "too few": MIST}
@@ -278,9 +280,6 @@ def _html_table(t: Table, limit: int | None = None) -> str:
 
 def section_html(v: dict[str, Any], figs: list[Figure], first: int) -> str:
     """The section of report.html (chart ids from ``first`` on)."""
-    from ..verify import CAUTIONS as VERIFY_CAUTIONS
-    from .html import _figure
-
     keys = "".join(f'<div class="key"><div class="k">{html_text(k)}</div>'
                    f'<div class="v">{html_text(x)}</div></div>' for k, x in key_figures(v))
     _, t_units, t_blocks = verify_tables(v)
@@ -303,8 +302,6 @@ def section_html(v: dict[str, Any], figs: list[Figure], first: int) -> str:
 
 
 def section_md(v: dict[str, Any]) -> list[str]:
-    from ..verify import CAUTIONS as VERIFY_CAUTIONS
-
     out = [f"## {md_text(heading(v))}", "", md_text(_subline(v)), ""]
     out += [f"- {md_text(k)}: {md_text(x)}" for k, x in key_figures(v)]
     moved = _moved(v)
