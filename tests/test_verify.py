@@ -11,6 +11,7 @@ from pathlib import Path
 from typing import Any
 
 import numpy as np
+import polars as pl
 import pytest
 from scipy import stats as sps
 from statsmodels.stats.multitest import multipletests
@@ -337,3 +338,18 @@ def test_false_flags_over_a_hundred_seeds(tmp_path_factory: pytest.TempPathFacto
         store.ingest([str(p) for p in pair.write(d)])
         flagged += bool(verify(store, f"H{seed}-B", f"H{seed}-C").moved)
     assert flagged <= 10, flagged
+
+
+def test_results_that_are_not_numbers_are_left_out(planted: tuple[Store, Pair]) -> None:
+    """A NaN or infinite result (R*4 allows them) is not an in-limit value."""
+    r = Reader(planted[0])
+    try:
+        b, c = read_lot(r, "CR-B1"), read_lot(r, "CR-C1")
+    finally:
+        r.close()
+    bad = c.results.with_columns(
+        pl.when((pl.col("test_num") == 100) & (pl.col("part_index") < 3))
+        .then(pl.lit(float("nan"))).otherwise(pl.col("value")).alias("value"))
+    v = compare_lots(b, type(c)(c.lot_id, c.files, c.parts, bad, c.touchdowns, c.block_times))
+    t = next(t for t in v.tests if t.test_num == 100)
+    assert t.cand.n == 397 and np.isfinite(t.values[1]).all() and t.verdict == "same"

@@ -60,8 +60,8 @@ def test_values(results: pl.DataFrame, kept: pl.DataFrame) -> pl.DataFrame:
             .sort("rec_index")
             .unique(subset=["file_id", "part_index", *KEY], keep="first", maintain_order=True)
             .with_columns(pl.coalesce(pl.col("failed"), outside.fill_null(False)).alias("fail"))
-            .with_columns((pl.col("value").is_not_null() & ~pl.col("fail") & ~outside)
-                          .alias("inlim")))
+            .with_columns((pl.col("value").is_not_null() & pl.col("value").is_finite()
+                           & ~pl.col("fail") & ~outside).fill_null(False).alias("inlim")))
 
 
 def per_test(tv: pl.DataFrame) -> pl.DataFrame:
