@@ -18,7 +18,7 @@ from statsmodels.stats.multitest import multipletests
 
 from pipeline.store import Store
 from pipeline.verify import VERDICTS, Rules, compare_lots, verify
-from pipeline.verify.queries import Reader, read_lot
+from pipeline.verify.queries import LotData, Reader, read_lot
 from tests.conftest import SAMPLES, CliResult, Ingested, truth
 from tests.correlation_lots import FLIP_TEST, Pair
 
@@ -43,6 +43,14 @@ def run_json(cli: Callable[..., CliResult], store: Store, *extra: str) -> dict[s
             "--json", *extra)
     assert r.code == 0, r.err
     return json.loads(r.out)  # type: ignore[no-any-return]
+
+
+def read_pair(store: Store) -> tuple[LotData, LotData]:
+    r = Reader(store)
+    try:
+        return read_lot(r, "CR-B1"), read_lot(r, "CR-C1")
+    finally:
+        r.close()
 
 
 def flagged(out: dict[str, Any]) -> set[int]:
@@ -255,11 +263,7 @@ def test_too_few_units_say_too_few_not_same(tmp_path: Path) -> None:
 
 
 def test_compare_lots_is_the_pure_core(planted: tuple[Store, Pair]) -> None:
-    r = Reader(planted[0])
-    try:
-        b, c = read_lot(r, "CR-B1"), read_lot(r, "CR-C1")
-    finally:
-        r.close()
+    b, c = read_pair(planted[0])
     v = compare_lots(b, c, "part_id")
     assert {t.test_num for t in v.moved} == {MEAN_TEST, SPREAD_TEST}
 
@@ -342,14 +346,10 @@ def test_false_flags_over_a_hundred_seeds(tmp_path_factory: pytest.TempPathFacto
 
 def test_results_that_are_not_numbers_are_left_out(planted: tuple[Store, Pair]) -> None:
     """A NaN or infinite result (R*4 allows them) is not an in-limit value."""
-    r = Reader(planted[0])
-    try:
-        b, c = read_lot(r, "CR-B1"), read_lot(r, "CR-C1")
-    finally:
-        r.close()
+    b, c = read_pair(planted[0])
     bad = c.results.with_columns(
         pl.when((pl.col("test_num") == 100) & (pl.col("part_index") < 3))
         .then(pl.lit(float("nan"))).otherwise(pl.col("value")).alias("value"))
-    v = compare_lots(b, type(c)(c.lot_id, c.files, c.parts, bad, c.touchdowns, c.block_times))
+    v = compare_lots(b, LotData(c.lot_id, c.files, c.parts, bad, c.touchdowns, c.block_times))
     t = next(t for t in v.tests if t.test_num == 100)
     assert t.cand.n == 397 and np.isfinite(t.values[1]).all() and t.verdict == "same"
