@@ -182,8 +182,9 @@ register("sites", "the multi-site view: touchdown time, MSE, imbalance, shared i
 
 
 # The commands of other areas live in their own modules and register themselves here on
-# import: cli_plan (plan, draft-map), cli_report (report, demo), cli_nightly (nightly).
-from . import cli_nightly, cli_plan, cli_report, cli_store  # noqa: E402,F401
+# import: cli_plan (plan, draft-map), cli_report (report, demo), cli_nightly (nightly),
+# cli_verify (verify), cli_store (upgrade).
+from . import cli_nightly, cli_plan, cli_report, cli_store, cli_verify  # noqa: E402,F401
 
 
 # -- formatting -------------------------------------------------------------------------

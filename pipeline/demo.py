@@ -1,6 +1,6 @@
 """`tandem demo`: the whole job on the bundled, invented sample logs —
 ``sample_logs/`` → DIR/store → block times → a plan with ``sample_logs/blocks.toml`` →
-DIR/report.
+the verification of the concurrent program's correlation lot → DIR/report.
 
 Everything here goes through the same API a user calls; the demo adds no logic of its
 own beyond choosing the files, the lot and what it prints.
@@ -23,6 +23,8 @@ BLOCK_MAP = SAMPLES / "blocks.toml"
 # show. (Left to itself the planner takes the lot with the most parts: PF4-L0234, one
 # site timed only by part totals.)
 DEMO_LOT = "PF4-L0231"
+# The same units tested again with the plan applied (the concurrent program, rev B3).
+CANDIDATE_LOT = "PF4-L0236"
 
 Progress = Callable[[str, int, int], None]
 
@@ -38,6 +40,7 @@ def run_demo(out: str, say: Callable[[str], None], progress: Progress | None = N
     from . import timing
     from .report import build_report
     from .report.plan import make_plan
+    from .verify import verify
 
     t0 = time.perf_counter()
     out_dir = Path(out)
@@ -63,9 +66,18 @@ def run_demo(out: str, say: Callable[[str], None], progress: Progress | None = N
         f"{plan['baseline_ms']:.1f} ms -> {plan['planned_ms']:.1f} ms "
         f"({plan['saving_pct']:.1f} % less"
         f"{', proven optimal' if plan['proven_optimal'] else ''}).")
+    step("verifying", 0, 1)
+    v = verify(store, DEMO_LOT, CANDIDATE_LOT, plan=plan)
+    t = v.time
+    moved = ", ".join(x.name for x in v.moved) or "none"
+    say(f"4. Verification of {CANDIDATE_LOT} (the plan applied) against {DEMO_LOT}: touchdown "
+        f"{t['baseline_touchdown_ms']:.1f} ms -> {t['candidate_touchdown_ms']:.1f} ms "
+        f"({t['saving_pct']:.1f} % less, {t['projected']['saving_pct']:.1f} % planned); "
+        f"{len(v.moved)} of {len(v.tests)} tests moved ({moved}); "
+        f"{len(v.changed_units)} of {v.matched_units} units changed bin.")
     files = build_report(store, out_dir / "report", blocks=str(BLOCK_MAP), lot=DEMO_LOT,
-                         plan=plan, progress=progress)
-    say(f"4. Report: {files.html} ({files.html_bytes / 1e6:.1f} MB, opens offline), "
+                         plan=plan, progress=progress, verification=v)
+    say(f"5. Report: {files.html} ({files.html_bytes / 1e6:.1f} MB, opens offline), "
         f"{files.summary_md} (the one-page proposal), {files.out / 'charts'}/ "
         f"({len(files.charts)} PNG and SVG files).")
     say("   Read its cautions before acting on any of it.")

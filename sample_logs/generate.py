@@ -237,6 +237,8 @@ class LotSpec:
     stops_per_block: int = 0       # stop-on-fail lots: exactly this many fails per block
     never_fail: tuple[str, ...] = ()
     csv: bool = False
+    job_rev: str = JOB_REV
+    retest_of: str | None = None   # a correlation lot: these units of that lot, re-tested
 
 
 LOTS = (
@@ -254,6 +256,11 @@ LOTS = (
             stop_on_fail=True, stops_per_block=10, never_fail=("flash_bist",)),
     LotSpec(5, "PF4-L0235", "W03", (Output("pf4_L0235_timing.csv"),), 30,
             start=(2024, 3, 11, 7, 50), csv=True),
+    # The correlation run of the concurrent program (rev B3): lot PF4-L0231's 160 units
+    # (same wafer, part ids and dies) tested again with the demo's plan applied. See
+    # "the re-test" below for what changed on purpose.
+    LotSpec(6, "PF4-L0236", "W01", (Output("pf4_L0236_w01_concurrent.stdf.gz", gzip=True),),
+            40, start=(2024, 3, 12, 9, 30), job_rev="B3", retest_of="PF4-L0231"),
 )
 
 
@@ -381,6 +388,14 @@ class Stats:
     values: list[float] = field(default_factory=list)
 
 
+@dataclass(frozen=True)
+class Trace:
+    """One unit's result of one test: its values (PTR one, MPR one per element, FTR none)."""
+
+    values: tuple[float, ...]
+    failed: bool
+
+
 class Emitter:
     """Builds one file's records. Remembers which test numbers had their first (full)
     record, and tallies each (test, site) for the TSRs."""
@@ -390,6 +405,8 @@ class Emitter:
         self.seen: set[int] = set()
         self.stats: dict[tuple[int, int], Stats] = {}
         self.pmr, self.rng = pmr, rng
+        self.unit = ""  # PART_ID of the part being written
+        self.trace: dict[tuple[str, int], Trace] = {}  # (part, test) -> what it returned
 
     def add(self, name: str, **values: Any) -> None:
         self.records.append((name, values))
@@ -432,9 +449,22 @@ class Emitter:
         return {"OPT_FLAG": opt, "RES_SCAL": f.scale, "LLM_SCAL": f.scale, "HLM_SCAL": f.scale,
                 "LO_LIMIT": f.lo or 0.0, "HI_LIMIT": f.hi or 0.0}
 
+    def result(self, t: TestDef, fail: bool) -> tuple[float, int]:
+        return self.value(t.fam, fail)
+
+    def mpr_values(self, t: TestDef, fail: bool) -> list[float]:
+        f = t.fam
+        bow = 0.4 * np.sin(np.pi * np.arange(MPR_RESULTS) / (MPR_RESULTS - 1))
+        vals = [f32(float(np.clip(bw + f.sigma * self.rng.standard_normal(), f.lo, f.hi)))
+                for bw in bow]
+        if fail:
+            vals[int(self.rng.integers(MPR_RESULTS))] = self.value(f, True)[0]
+        return vals
+
     def ptr(self, t: TestDef, site: int, fail: bool, st: Stats) -> None:
-        v, parm = self.value(t.fam, fail)
+        v, parm = self.result(t, fail)
         st.values.append(v)
+        self.trace[(self.unit, t.num)] = Trace((v,), fail)
         rec = {"TEST_NUM": t.num, "HEAD_NUM": 1, "SITE_NUM": site,
                "TEST_FLG": 0x80 if fail else 0, "PARM_FLG": parm, "RESULT": v}
         if self.first(t):  # later ones stop after RESULT: the reader's default-data rule
@@ -444,11 +474,8 @@ class Emitter:
 
     def mpr(self, t: TestDef, site: int, fail: bool, st: Stats) -> None:
         f = t.fam
-        bow = 0.4 * np.sin(np.pi * np.arange(MPR_RESULTS) / (MPR_RESULTS - 1))
-        vals = [f32(float(np.clip(bw + f.sigma * self.rng.standard_normal(), f.lo, f.hi)))
-                for bw in bow]
-        if fail:
-            vals[int(self.rng.integers(MPR_RESULTS))] = self.value(f, True)[0]
+        vals = self.mpr_values(t, fail)
+        self.trace[(self.unit, t.num)] = Trace(tuple(vals), fail)
         rec = {"TEST_NUM": t.num, "HEAD_NUM": 1, "SITE_NUM": site,
                "TEST_FLG": 0x80 if fail else 0, "PARM_FLG": 0xC8 if fail else 0xC0,
                "RTN_ICNT": 0, "RSLT_CNT": MPR_RESULTS, "RTN_STAT": [], "RTN_RSLT": vals}
@@ -462,6 +489,7 @@ class Emitter:
 
     def ftr(self, t: TestDef, site: int, fail: bool, st: Stats) -> None:
         pins = [self.pmr[(site, pin)] for pin in t.fam.pins]
+        self.trace[(self.unit, t.num)] = Trace((), fail)
         # RTN_STAT nibbles (from memory of the standard): 0 = low, 1 = high, 5 = failed low
         states = [0, 5] if fail and pins else [0] * len(pins)
         rec: dict[str, Any] = {
@@ -499,7 +527,7 @@ def header(lot: LotSpec, pmr: dict[tuple[int, str], int], start_t: int) -> list[
         ("MIR", {"SETUP_T": start_t - 420, "START_T": start_t, "STAT_NUM": 2, "MODE_COD": "P",
                  "RTST_COD": " ", "PROT_COD": " ", "BURN_TIM": 65535, "CMOD_COD": " ",
                  "LOT_ID": lot.lot_id, "PART_TYP": PART_TYP, "NODE_NAM": NODE_NAM,
-                 "TSTR_TYP": TSTR_TYP, "JOB_NAM": JOB_NAM, "JOB_REV": JOB_REV, "SBLOT_ID": "",
+                 "TSTR_TYP": TSTR_TYP, "JOB_NAM": JOB_NAM, "JOB_REV": lot.job_rev, "SBLOT_ID": "",
                  "OPER_NAM": "op07", "EXEC_TYP": "simexec", "EXEC_VER": "1.4",
                  "TEST_COD": "WS1", "TST_TEMP": "25", "USER_TXT": "", "AUX_FILE": "",
                  "PKG_TYP": "", "FAMLY_ID": "PF", "DATE_COD": "", "FACIL_ID": FACILITY,
@@ -543,6 +571,7 @@ def emit_touchdown(em: Emitter, lot: LotSpec, td: Touchdown, blocks: list[Block]
         if lot.sections:
             em.add("BPS", SEQ_NAME=b.name)
         for p in running:
+            em.unit = p.part_id
             num_test[p.site] += em.block(b, p.site, p.fail_block == b.index)
         if lot.sections:
             em.add("EPS")
@@ -613,12 +642,14 @@ def bin_records(lot: LotSpec, parts: list[Part], blocks: list[Block]) -> list[Re
 
 
 def build_stdf(lot: LotSpec, blocks: list[Block], tds: list[Touchdown], index: list[int],
-               rng: np.random.Generator) -> tuple[list[Rec], int, int]:
-    """Every record after the FAR, with START_T and FINISH_T."""
+               rng: np.random.Generator, em: Emitter | None = None
+               ) -> tuple[list[Rec], int, int, Emitter]:
+    """Every record after the FAR, with START_T and FINISH_T, and the emitter (its trace
+    holds what each unit returned)."""
     start_t = local_epoch(lot.start)
     finish_t = start_t + round((sum(td.duration_us for td in tds) + sum(index)) / 1e6)
     pmr = pmr_index(lot.sites)
-    em = Emitter(pmr, rng)
+    em = Emitter(pmr, rng) if em is None else em
     em.records = header(lot, pmr, start_t)
     for td in tds:
         emit_touchdown(em, lot, td, blocks)
@@ -635,7 +666,7 @@ def build_stdf(lot: LotSpec, blocks: list[Block], tds: list[Touchdown], index: l
                     em.records.append(rec)
     em.records += bin_records(lot, parts, blocks)
     em.add("MRR", FINISH_T=finish_t, DISP_COD=" ")
-    return em.records, start_t, finish_t
+    return em.records, start_t, finish_t, em
 
 
 def encode_stream(recs: list[Rec], endian: str) -> bytes:
@@ -649,6 +680,150 @@ def gzip_bytes(data: bytes) -> bytes:
     with gzip.GzipFile(filename="", mode="wb", fileobj=buf, mtime=0, compresslevel=9) as gz:
         gz.write(data)
     return buf.getvalue()
+
+
+# ------------------------------------------------------------------ the re-test
+# Lot PF4-L0236 is a correlation run: the units of PF4-L0231 tested again, with the demo's
+# plan applied. Each unit's result is re-measured from its baseline one with test-retest
+# correlation RETEST_RHO (c = nom + rho (b - nom) + sqrt(1 - rho^2) sigma z: the same spread,
+# paired differences of sd sigma sqrt(2 (1 - rho))). A unit fails where it failed before;
+# on purpose, two tests move (PLANTED), flash_bist runs slower beside scan (CONCURRENT_SLOW)
+# and the three passing units with the lowest adc_snr now fail it (FLIPS).
+
+RETEST_RHO = 0.9
+PLANTED = {  # test name -> (mean shift in baseline sigmas, ratio of sigmas)
+    "adc_snr": (-0.8, 1.0),         # scan switching noise coupled into the ADC
+    "pll_jitter_rms": (0.0, 1.6),   # supply noise from scan_core* beside pll_lock
+}
+FLIP_TEST, FLIPS = "adc_snr", 3
+CONCURRENT_SLOW = {"flash_bist": 1.08}  # shares the core supply with a scan block
+# The demo's plan for PF4-L0231 (tandem plan --blocks blocks.toml; proven optimal) as a
+# program runs it: per site, after contact, lanes of blocks run in parallel, each block
+# starting when the one before it in its lane ends; the shared rf_meter serves the sites in
+# METER_ORDER, each use waiting for the one before it.
+LANES = {
+    1: ("scan_core0 scan_core1 scan_core3 scan_core2",
+        "dc_leakage radio_tx flash_bist sram_bist radio_rx", "adc_linearity pll_lock"),
+    2: ("scan_core0 scan_core3 scan_core1 scan_core2",
+        "radio_tx dc_leakage sram_bist radio_rx", "adc_linearity flash_bist pll_lock"),
+    3: ("scan_core2 scan_core3 scan_core1 scan_core0",
+        "dc_leakage flash_bist sram_bist radio_tx radio_rx", "adc_linearity pll_lock"),
+    4: ("scan_core3 scan_core1 scan_core2 scan_core0",
+        "dc_leakage flash_bist sram_bist radio_tx radio_rx", "adc_linearity pll_lock"),
+}
+METER_ORDER = ("radio_tx:2 radio_tx:1 radio_tx:3 radio_tx:4 "
+               "radio_rx:2 radio_rx:4 radio_rx:1 radio_rx:3").split()
+
+
+class Retest(Emitter):
+    """Writes a re-test: every result derived from the same unit's baseline result."""
+
+    def __init__(self, pmr: dict[tuple[int, str], int], rng: np.random.Generator,
+                 base: dict[tuple[str, int], Trace], flips: dict[str, int]):
+        super().__init__(pmr, rng)
+        self.base, self.flips = base, flips  # flips: part -> the test it now fails
+
+    def block(self, b: Block, site: int, failing: bool) -> int:
+        for t in b.tests:
+            fail = self.base[(self.unit, t.num)].failed or self.flips.get(self.unit) == t.num
+            st = self.stats.setdefault((t.num, site), Stats())
+            st.execs += 1
+            st.fails += fail
+            {"P": self.ptr, "F": self.ftr, "M": self.mpr}[t.kind](t, site, fail, st)
+        return len(b.tests)
+
+    def again(self, f: Fam, name: str, nom: float, was: float) -> float:
+        shift, ratio = PLANTED.get(name, (0.0, 1.0))
+        dev = RETEST_RHO * (was - nom) + math.sqrt(1 - RETEST_RHO ** 2) * f.sigma * float(
+            self.rng.standard_normal())
+        v = nom + ratio * dev + shift * f.sigma
+        v = max(v, f.lo) if f.lo is not None else v
+        return f32(min(v, f.hi) if f.hi is not None else v)
+
+    def result(self, t: TestDef, fail: bool) -> tuple[float, int]:
+        if fail:
+            return self.value(t.fam, True)
+        return self.again(t.fam, t.name, t.fam.nom, self.base[(self.unit, t.num)].values[0]), 0xC0
+
+    def mpr_values(self, t: TestDef, fail: bool) -> list[float]:
+        f, was = t.fam, self.base[(self.unit, t.num)].values
+        bow = 0.4 * np.sin(np.pi * np.arange(MPR_RESULTS) / (MPR_RESULTS - 1))
+        vals = [self.again(f, t.name, float(bw), w) for bw, w in zip(bow, was, strict=True)]
+        if fail:  # the element that failed before fails again
+            outside = [k for k, w in enumerate(was) if not (f.lo or -math.inf) <= w
+                       <= (f.hi if f.hi is not None else math.inf)]
+            vals[outside[0] if outside else 0] = self.value(f, True)[0]
+        return vals
+
+
+def run_concurrent(td: Touchdown, blocks: list[Block], rng: np.random.Generator) -> None:
+    """Every part's spans under LANES and METER_ORDER (durations drawn site by site, lane
+    by lane, so the draws do not depend on the order starts are resolved in)."""
+    by_name = {b.name: b for b in blocks}
+    parts = {p.site: p for p in td.parts}
+    dur: dict[tuple[str, int], int] = {}
+    after: dict[tuple[str, int], list[tuple[str, int]]] = {}
+    for p in td.parts:
+        p.overhead_us = draw_us(OVERHEAD_MS, rng)
+        dur[("contact", p.site)] = draw_us(by_name["contact"].nominal_ms(p.site), rng)
+        for lane in LANES[p.site]:
+            prev = ("contact", p.site)
+            for name in lane.split():
+                slow = CONCURRENT_SLOW.get(name, 1.0)
+                dur[(name, p.site)] = draw_us(by_name[name].nominal_ms(p.site) * slow, rng)
+                after[(name, p.site)] = [prev]
+                prev = (name, p.site)
+    for a, b in zip(METER_ORDER, METER_ORDER[1:], strict=False):
+        na, sa = a.split(":")
+        nb, sb = b.split(":")
+        after[(nb, int(sb))].append((na, int(sa)))
+    end: dict[tuple[str, int], int] = {}
+
+    def finish(key: tuple[str, int]) -> int:
+        if key not in end:
+            start = max((finish(k) for k in after.get(key, [])),
+                        default=parts[key[1]].overhead_us)
+            end[key] = start + dur[key]
+            parts[key[1]].spans[by_name[key[0]].index] = (start, end[key])
+        return end[key]
+
+    for key in dur:
+        finish(key)
+    for p in td.parts:
+        p.end_us = max(e for _, e in p.spans.values())
+    td.duration_us = max(p.end_us for p in td.parts)
+
+
+def plan_retest(lot: LotSpec, blocks: list[Block], was: list[Touchdown],
+                trace: dict[tuple[str, int], Trace], rng: np.random.Generator
+                ) -> tuple[list[Touchdown], list[int], Retest, dict[str, Any]]:
+    """The re-test's touchdowns (the baseline's units on the same sites), index times, its
+    emitter, and the truth of what was planted."""
+    flip_test = next(t for b in blocks for t in b.tests if t.name == FLIP_TEST)
+    flip_block = next(b.index for b in blocks if flip_test in b.tests)
+    passing = [p for td in was for p in td.parts if p.fail_block is None]
+    lowest = sorted(passing, key=lambda p: (trace[(p.part_id, flip_test.num)].values[0],
+                                            int(p.part_id)))[:FLIPS]
+    flips = {p.part_id: flip_test.num for p in lowest}
+    tds = []
+    for old in was:
+        parts = [Part(p.site, p.part_id, p.x, p.y,
+                      flip_block if p.part_id in flips else p.fail_block,
+                      list(range(len(blocks)))) for p in old.parts]
+        td = Touchdown(parts)
+        run_concurrent(td, blocks, rng)
+        tds.append(td)
+    index = [draw_us(INDEX_MS, rng) for _ in range(len(tds) - 1)]
+    em = Retest(pmr_index(lot.sites), rng, trace, flips)
+    base_ms = sum(td.duration_us for td in was) / len(was)
+    new_ms = sum(td.duration_us for td in tds) / len(tds)
+    return tds, index, em, {"retest": {
+        "of": lot.retest_of, "rho": RETEST_RHO,
+        "planted": {k: {"shift_sigma": v[0], "sigma_ratio": v[1]} for k, v in PLANTED.items()},
+        "flipped_part_ids": sorted(flips, key=int), "flip_test": FLIP_TEST,
+        "concurrent_slowdown": CONCURRENT_SLOW,
+        "baseline_touchdown_ms": ms(base_ms), "touchdown_ms": ms(new_ms),
+        "realised_saving_pct": round(100 * (1 - new_ms / base_ms), 4)}}
 
 
 # ------------------------------------------------------------------ the timing CSV
@@ -799,7 +974,8 @@ def lot_truth(lot: LotSpec, blocks: list[Block], tds: list[Touchdown], index: li
               ) -> dict[str, Any]:
     parts = [p for td in tds for p in td.parts]
     out: dict[str, Any] = {
-        "lot_id": lot.lot_id, "wafer_id": lot.wafer_id, "sites": list(lot.sites),
+        "lot_id": lot.lot_id, "wafer_id": lot.wafer_id, "job_rev": lot.job_rev,
+        "sites": list(lot.sites),
         "touchdowns": len(tds), "parts": len(parts),
         "parts_per_site": {str(s): sum(p.site == s for p in parts) for s in lot.sites},
         "good_per_site": {str(s): sum(p.site == s and p.fail_block is None for p in parts)
@@ -838,16 +1014,24 @@ def generate(out_dir: Path) -> dict[str, Any]:
     out_dir.mkdir(parents=True, exist_ok=True)
     blocks = build_blocks()
     files: dict[str, Any] = {}
+    made: dict[str, tuple[list[Touchdown], dict[tuple[str, int], Trace]]] = {}
     for lot in LOTS:
         rng = np.random.default_rng([SEED, lot.key])
-        tds, index = plan_lot(lot, blocks, rng)
-        base = lot_truth(lot, blocks, tds, index)
+        em: Emitter | None = None
+        if lot.retest_of:
+            was_tds, was_trace = made[lot.retest_of]
+            tds, index, em, extra = plan_retest(lot, blocks, was_tds, was_trace, rng)
+        else:
+            tds, index = plan_lot(lot, blocks, rng)
+            extra = {}
+        base = lot_truth(lot, blocks, tds, index) | extra
         if lot.csv:
             name = lot.outputs[0].name
             (out_dir / name).write_bytes(build_csv(lot, blocks, tds))
             files[name] = {"format": "csv"} | base
             continue
-        recs, start_t, finish_t = build_stdf(lot, blocks, tds, index, rng)
+        recs, start_t, finish_t, em = build_stdf(lot, blocks, tds, index, rng, em)
+        made[lot.lot_id] = (tds, em.trace)
         base |= {"start_t": start_t, "finish_t": finish_t} | record_truth(recs)
         for o in lot.outputs:
             data = encode_stream(recs, o.endian)

@@ -29,7 +29,8 @@ MARKERS_GZ = "pf4_L0232_w02_markers.stdf.gz"
 TSR_ONLY = "pf4_L0233_tsr_only.stdf"
 TOTALS_ONLY = "pf4_L0234_totals_only.stdf"
 TIMING_CSV = "pf4_L0235_timing.csv"
-STDF_LOGS = (MARKERS_LE, MARKERS_BE, MARKERS_GZ, TSR_ONLY, TOTALS_ONLY)
+CONCURRENT = "pf4_L0236_w01_concurrent.stdf.gz"  # lot PF4-L0231's units, the plan applied
+STDF_LOGS = (MARKERS_LE, MARKERS_BE, MARKERS_GZ, TSR_ONLY, TOTALS_ONLY, CONCURRENT)
 ALL_LOGS = (*STDF_LOGS, TIMING_CSV)
 NOT_LOGS = ("blocks.toml", "generate.py", "truth.json")  # in sample_logs/, not datalogs
 

@@ -203,7 +203,7 @@ def test_lots_match_truth(sample_store: Ingested, name: str) -> None:
         return
     as_local = lambda s: dt.datetime.fromtimestamp(s, dt.UTC).replace(tzinfo=None)  # noqa: E731
     assert (row["part_type"], row["program"], row["program_rev"], row["tester_type"]) == (
-        dev["part_typ"], dev["job"], dev["job_rev"], dev["tester_type"])
+        dev["part_typ"], dev["job"], t["job_rev"], dev["tester_type"])
     assert row["started_at"] == as_local(t["start_t"])
     assert row["finished_at"] == as_local(t["finish_t"])
 

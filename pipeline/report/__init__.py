@@ -39,11 +39,13 @@ class ReportFiles:
 
 def build_report(store: Store, out: str | Path, blocks: str | None = None,
                  lot: str | None = None, plan: dict[str, Any] | None = None,
-                 progress: Progress | None = None) -> ReportFiles:
+                 progress: Progress | None = None, verification: Any = None) -> ReportFiles:
     """Write the report of ``store`` into ``out`` (created; files there are replaced).
 
     ``blocks``: the block map; the plan is made with it (``pipeline.plan.plan_lot``, as
     `tandem plan` does) unless ``plan``, a dict from ``tandem plan --json``, is given.
+    ``verification``: a ``pipeline.verify.Verification`` (or its JSON dict), reported in
+    a section of its own (report/verify.py).
     """
     from ..errors import UsageError
     from .charts import figures
@@ -53,6 +55,7 @@ def build_report(store: Store, out: str | Path, blocks: str | None = None,
     from .html import render_html
     from .plan import PlanView, make_plan
     from .summary import render_md, summary_json
+    from .verify import section_html, section_md, verify_figures, verify_tables
 
     say = progress or (lambda step, done, total: None)
     if Path(out).exists() and not Path(out).is_dir():
@@ -63,7 +66,11 @@ def build_report(store: Store, out: str | Path, blocks: str | None = None,
     say("reading the store", 0, 1)
     data = gather(store, lot, plan, blocks)
     view = PlanView.of(plan) if plan else None
-    figs = figures(data, view)
+    ver = (verification if isinstance(verification, dict) or verification is None
+           else verification.to_json())
+    main = figures(data, view)
+    extra = verify_figures(ver) if ver else []
+    figs = main + extra
     out = Path(out)
     _clear(out)
     charts: list[Path] = []
@@ -72,12 +79,16 @@ def build_report(store: Store, out: str | Path, blocks: str | None = None,
         charts += write_chart(f.spec(), out / "charts" / f.name)
     say("writing report.html", len(figs), len(figs))
     html = out / "report.html"
-    html.write_text(render_html(data, view, figs), encoding="utf-8")
+    section = section_html(ver, extra, len(main)) if ver else ""
+    html.write_text(render_html(data, view, main, section), encoding="utf-8")
     md = out / "summary.md"
-    md.write_text(render_md(data, view, figs), encoding="utf-8")
+    md.write_text(render_md(data, view, figs, section_md(ver) if ver else []),
+                  encoding="utf-8")
     js = out / "summary.json"
-    js.write_text(safe_json(summary_json(data, plan, figs)) + "\n", encoding="utf-8")
-    written = [write_csv(t, out / "tables" / f"{t.name}.csv") for t in tables(data, view)]
+    summary = summary_json(data, plan, figs) | ({"verification": ver} if ver else {})
+    js.write_text(safe_json(summary) + "\n", encoding="utf-8")
+    every = tables(data, view) + (verify_tables(ver) if ver else [])
+    written = [write_csv(t, out / "tables" / f"{t.name}.csv") for t in every]
     say("done", 1, 1)
     return ReportFiles(out, html, md, js, charts, written, data.lot_id, view is not None,
                        {f.name: f.spec() for f in figs}, {f.name: f.title for f in figs})

@@ -33,7 +33,9 @@ HEADINGS = {  # section headings in report.html; the chart's own title is the fi
     "block_share": "Where the time goes", "touchdown_before_after": "One touchdown, before "
     "and after", "savings_waterfall": "From the baseline to the plan",
     "site_block_heatmap": "Sites against blocks", "part_time_by_site": "Part time per site",
-    "block_time_by_lot": "Across lots", "estimate_intervals": "Estimated block times"}
+    "block_time_by_lot": "Across lots", "estimate_intervals": "Estimated block times",
+    "verify_shift_spread": "Which tests moved", "verify_distributions": "Before and after",
+    "verify_time": "Time: realised against planned"}
 WIDTH = 640
 
 

@@ -47,6 +47,10 @@ th, td { border-bottom: 1px solid var(--mist); padding: 4px 8px; text-align: lef
 td.n { text-align: right; font-variant-numeric: tabular-nums; }
 th { background: #f3f6f7; }
 footer { color: var(--slate); font-size: 12px; margin-top: 30px; }
+h3 { font-size: 15px; margin: 20px 0 6px; }
+#verification { border-top: 2px solid var(--mist); margin-top: 30px; }
+.verify-cautions { border-left: 4px solid var(--coral); background: #fbefe9;
+                   padding: 8px 14px 8px 30px; }
 """
 
 # Renders each spec; records success on <body data-charts-rendered> and failures on
@@ -106,7 +110,10 @@ def _figure(i: int, f: Figure) -> str:
             f'<script type="application/json" data-chart="chart-{i}">{spec}</script></figure>')
 
 
-def render_html(data: ReportData, plan: PlanView | None, figures: list[Figure]) -> str:
+def render_html(data: ReportData, plan: PlanView | None, figures: list[Figure],
+                section: str = "") -> str:
+    """The page; ``section`` is extra HTML after the tables (the verification's, whose
+    chart ids continue after ``figures``)."""
     keys = "".join(f'<div class="key"><div class="k">{html_text(k)}</div>'
                    f'<div class="v">{html_text(v)}</div></div>'
                    for k, v in headline(data, plan))
@@ -135,6 +142,8 @@ def render_html(data: ReportData, plan: PlanView | None, figures: list[Figure]) 
     for name in order:
         if name in all_tables and all_tables[name].rows:
             parts.append(f'<div class="wide">{_table(all_tables[name], 40)}</div>')
+    if section:
+        parts.append(section)
     if plan_cautions:
         parts.append("<h2>The planner's cautions for this plan</h2><ul>"
                      + "".join(f"<li>{html_text(c)}</li>" for c in plan_cautions) + "</ul>")

@@ -47,7 +47,9 @@ def _cell(v: Any) -> str:
     return md_text(num(v)) if v is not None else ""
 
 
-def render_md(data: ReportData, plan: PlanView | None, figures: list[Figure]) -> str:
+def render_md(data: ReportData, plan: PlanView | None, figures: list[Figure],
+              section: list[str] | None = None) -> str:
+    """The page; ``section``: extra lines before the assumptions (the verification's)."""
     lots = ", ".join(data.lots["lot_id"].to_list())
     focus = data.lots.filter(data.lots["lot_id"] == data.lot_id).to_dicts()
     program = ""
@@ -65,6 +67,7 @@ def render_md(data: ReportData, plan: PlanView | None, figures: list[Figure]) ->
     out += ["", "## The lots", ""] + md_table(lots_table(data)) + [""]
     out += _baseline(data)
     out += _plan(plan) if plan else ["## The plan", "", md_text(NO_PLAN), ""]
+    out += section or []
     out += ["## Assumptions", ""] + [f"- {md_text(a)}" for a in assumptions(data, plan)]
     extra = notes(data, plan)
     if extra:
