@@ -167,10 +167,8 @@ def site_model(ctx: LotContext) -> dict[str, pa.Table]:
                                             sum(touchdown_ms) from touchdowns""")
     if not n:
         return {"site_summary": DERIVED["site_summary"].empty_table()}
-    pooled = _one(con, "select attributed_ms from reconciliation where site is null")
     overhead = _overhead_ms(con)
-    attributed = pooled[0] if pooled is not None else None
-    one_site = (attributed or 0.0) + max(overhead or 0.0, 0.0) if pooled is not None else 0.0
+    one_site = _one_site_ms(con, overhead)
     serial = [b for (b,) in con.execute("""select block from serialized_blocks
                                           where is_serialized order by block""").fetchall()]
     wall = _one(con, """select sum(epoch(finished_at) - epoch(started_at)) from lots
@@ -185,6 +183,20 @@ def site_model(ctx: LotContext) -> dict[str, pa.Table]:
            "index_ms": index_ms(wall, float(total or 0.0), int(n)),
            "serialized_blocks": serial, "method": method}
     return {"site_summary": pa.Table.from_pylist([row], DERIVED["site_summary"])}
+
+
+def _one_site_ms(con: Any, overhead: float | None) -> float:
+    """T_1: with per-block timing, the mean part time without its idle gaps (a part
+    waiting for a shared instrument is idle; blocks a concurrent program runs at once
+    count once); else the block times plus the per-part overhead."""
+    alone = _one(con, """select avg(alone_ms) from part_spans
+                         where outside_ms >= 0 and alone_ms is not null""")
+    if alone is not None and alone[0] is not None:
+        return float(alone[0])
+    pooled = _one(con, "select attributed_ms from reconciliation where site is null")
+    if pooled is None:
+        return 0.0
+    return (pooled[0] or 0.0) + max(overhead or 0.0, 0.0)
 
 
 def _one(con: Any, query: str) -> Any:
@@ -250,7 +262,7 @@ def block_table(store: Any, lot: str | None = None) -> pl.DataFrame:
     df = store.sql(f"""
         select lot_id, block, site, parts, mean_ms, p50_ms, p95_ms, total_ms, method,
                share_pct, ci_low_ms, ci_high_ms, identifiable
-        from block_times {where} order by lot_id, mean_ms desc""", params)
+        from block_times {where} order by lot_id, mean_ms desc, block, site""", params)
     if lot and df.is_empty():
         raise InputError(f"lot {lot!r} has no block times (no timing markers, timing CSV, "
                          "TSR summaries, or part times the estimate can use)")
@@ -260,7 +272,8 @@ def block_table(store: Any, lot: str | None = None) -> pl.DataFrame:
                 .pivot(on="col", index=["lot_id", "block"], values="mean_ms"))
     site_cols = sorted((c for c in per_site.columns if c.startswith("site_")),
                        key=lambda c: int(c.split("_")[1]))
-    out = (pooled.sort(["lot_id", "mean_ms"], descending=[False, True])
+    # ties (blocks the estimate times together) by name: the same order on every run
+    out = (pooled.sort(["lot_id", "mean_ms", "block"], descending=[False, True, False])
            .with_columns(pl.col("share_pct").cum_sum().over("lot_id").alias("cum_pct"))
            .join(per_site.select(["lot_id", "block", *site_cols]), on=["lot_id", "block"],
                  how="left"))
@@ -305,12 +318,13 @@ def site_summaries(store: Any, lot: str | None = None) -> list[SiteSummary]:
     """Touchdown time, one-site time T_1, MSE, per-site imbalance, blocks serialised
     across sites, and index time, per lot.
 
-    T_1 is what one part would cost on its own: the sum of the pooled block times plus the
-    per-part overhead. With per-block timing (markers, CSV) the overhead is the part time
-    outside the span of its blocks (part_spans.outside_ms), so waits for a shared
-    instrument, which fall inside the span, are not counted in T_1. Without it (TSR or
-    estimate) the estimate's intercept is used, else the smallest unattributed time of any
-    site — an upper bound, so MSE is then a lower bound."""
+    T_1 is what one part would cost on its own. With per-block timing (markers, CSV) it is
+    the mean part time without its idle gaps (part_spans.alone_ms): waits for a shared
+    instrument are not counted, and blocks a concurrent program runs at once count once,
+    so MSE stays meaningful for a concurrent program too. Without it (TSR or estimate),
+    the sum of the pooled block times plus the per-part overhead: the estimate's
+    intercept, else the smallest unattributed time of any site — an upper bound, so MSE is
+    then a lower bound."""
     check_lot(store, lot)
     where, params = ("where lot_id = ?", [lot]) if lot else ("", [])
     sums = store.sql(f"select * from site_summary {where} order by lot_id", params)

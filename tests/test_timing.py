@@ -231,3 +231,22 @@ def test_drift_flags_a_block_that_got_slower(tmp_path):  # type: ignore[no-untyp
     df = timing.drift(store).filter(pl.col("block") == "pll_lock").sort("lot_id")
     means = df["mean_ms"].to_list()
     assert df["is_flagged"].to_list() == _drift_frame(means) == [False] * 4 + [True]
+
+
+def test_one_site_time_counts_overlapping_blocks_once(store):  # type: ignore[no-untyped-def]
+    """T_1 for a concurrent program: blocks run at once count once (the union of their
+    intervals), so its multi-site efficiency stays at most 100 %; a serial program's union
+    is its blocks' sum."""
+    from tests.conftest import CONCURRENT
+
+    serial, concurrent = file_truth(MARKERS_LE)["lot_id"], file_truth(CONCURRENT)["lot_id"]
+    spans = store.sql("""select lot_id, busy_ms, union_ms, idle_ms from part_spans
+                         where lot_id in (?, ?)""", [serial, concurrent])
+    s = spans.filter(pl.col("lot_id") == serial)
+    c = spans.filter(pl.col("lot_id") == concurrent)
+    assert np.allclose(s["union_ms"].to_numpy(), s["busy_ms"].to_numpy(), atol=1e-6)
+    assert (c["union_ms"] <= c["busy_ms"] + 1e-6).all()
+    assert (c["union_ms"] < 0.9 * c["busy_ms"]).mean() > 0.9  # the plan overlaps blocks
+    assert (spans["idle_ms"] >= -1e-6).all()
+    [summary] = timing.site_summaries(store.store, concurrent)
+    assert summary.mse is not None and 0.9 < summary.mse <= 1.0
