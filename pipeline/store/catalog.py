@@ -29,6 +29,7 @@ from .layout import (
     FILE,
     GEN,
     LOT,
+    LOGS,
     LOT_FILES,
     REJECTED,
     SCHEMA_KEY,
@@ -68,8 +69,13 @@ def registry_statements() -> list[str]:
         f"semi join raw_lot_gens using ({LOT}, {GEN})",
         "create or replace view raw_files as select * from raw_lot_files union all by name "
         f"select * from read_parquet('{REJECTED}/*.parquet')",
-        f"create or replace view raw_committed as select distinct lot_id as {LOT}, file_id "
-        f"from raw_lot_files where {COMMITTED}",
+        # From the folder listing, not from reading every lot's lot_files: a raw view's
+        # rows are its committed logs' whatever the filter, and a listing costs microseconds.
+        f"create or replace view raw_committed as select {LOT}, file_id from ("
+        f"select url_decode(m.k) as {LOT}, m.g::bigint as {GEN}, m.f as file_id from ("
+        f"select regexp_extract(file, '/{LOT}=([^/]+)/{GEN}=([0-9]+)/{LOGS}/([^/]+)$', "
+        f"['k', 'g', 'f']) as m from glob('{DERIVED}/*/*/{LOGS}/*'))) "
+        f"semi join raw_lot_gens using ({LOT}, {GEN})",
     ]
 
 

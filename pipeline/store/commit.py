@@ -35,6 +35,7 @@ from .derive import file_models
 from .layout import (
     GC_LIST,
     JOURNAL,
+    LOGS,
     LOT_FILES,
     REJECTED,
     STAGING,
@@ -189,6 +190,9 @@ def _build_generations(root: Path, work: Path, before: Registry, after: Registry
         listed = gen_dir(work, lot, n) / LOT_FILES / "part-0.parquet"
         listed.parent.mkdir(parents=True, exist_ok=True)
         pq.write_table(after.rows_of(lot), listed)
+        (gen_dir(work, lot, n) / LOGS).mkdir()
+        for fid in fids:  # what the raw views list to know which logs count
+            (gen_dir(work, lot, n) / LOGS / fid).touch()
         tasks.append(LotTask(root, lot, {m: [_out(work, lot, n, m, f) for f in fids]
                                          for m in file_models()},
                              _raw_files(root, lot, fids, new), work / "lots" / str(i), rules))

@@ -6,6 +6,7 @@
     tables/<table>/lot=<key>/file_id=<id>/part-0.parquet     decoded rows of one log
     derived/lot=<key>/gen=<n>/<model>/<name>.parquet         one lot's derived tables
     derived/lot=<key>/gen=<n>/lot_files/part-0.parquet       ... and the logs they cover
+    derived/lot=<key>/gen=<n>/logs/<file_id>                 ... as empty files
     meta/rejected/<file_id>.parquet                   logs that were not datalogs
     meta/rules/<sha>.parquet                          block-map rules, by content
     meta/state.json, meta/index.parquet               the writer's bookkeeping
@@ -46,6 +47,7 @@ GC_LIST = f"{META}/gc.json"
 CATALOG = "catalog.duckdb"
 LOCK = ".lock"
 LOT_FILES = "lot_files"  # the generation's own list of the logs it covers
+LOGS = "logs"  # ... and the same as empty files named by file id (a listing, not a read)
 SCHEMA_KEY = "_schema"  # the partition value of the empty, typed files
 LOT, FILE, GEN = "lot", "file_id", "gen"  # Hive partition keys
 # A partition value longer than this would come near the 255-byte limit of a file name.
