@@ -341,7 +341,7 @@ static int write_default(rtype_t *rt, int f, const dval_t *v, int64_t r) {
     const lay_t *L = &rt->lay[f];
     col_t *c = &rt->cols[f];
     if (c->kind == K_FIXED) {
-        memcpy(c->vals + r * c->size, &v->v, c->size);
+        put(c->vals + r * c->size, (const uint8_t *)&v->v, c->size, 0);
     } else if (c->dict) {
         ((int32_t *)c->vals)[r] = (int32_t)v->v;
     } else {
@@ -384,79 +384,167 @@ static inline int defaultable(const rtype_t *rt, int f) {
            (c->kind == K_FIXED || c->dict || c->kind == K_ARR || c->kind == K_NIB);
 }
 
-/* Decode the record b[pos..end) into row r of rt's columns. -1: no memory. */
+void rtype_prepare(rtype_t *rt) {
+    memset(rt->is_count, 0, sizeof(rt->is_count));
+    for (int f = 0; f < rt->nf; f++)
+        if (rt->lay[f].kind == K_ARR || rt->lay[f].kind == K_NIB) rt->is_count[rt->lay[f].ci] = 1;
+    rt->prefix_n = 0;
+    rt->prefix_bytes = 0;
+    while (rt->prefix_n < rt->nf && rt->lay[rt->prefix_n].kind == K_FIXED &&
+           !(rt->lay[rt->prefix_n].flags & F_DEFAULT) && rt->prefix_n != rt->opt_idx)
+        rt->prefix_bytes += rt->lay[rt->prefix_n++].size;
+    rt->n_dfl = 0;
+    for (int f = 0; f < rt->nf; f++)
+        if (defaultable(rt, f)) rt->dfl[rt->n_dfl++] = (uint8_t)f;
+}
+
+/* Fixed and dictionary columns take their defaults after the record pass; arrays append
+ * to their data in row order, so they take theirs inline. */
+static inline int deferred(const rtype_t *rt, int f) {
+    return rt->cols[f].kind == K_FIXED || rt->cols[f].dict;
+}
+
+static inline int64_t load(const uint8_t *p, int size, int big) {
+    switch (size) { /* the sizes of count fields and TEST_NUM: U*1, U*2, U*4 */
+    case 1: return p[0];
+    case 2: return big ? (p[0] << 8 | p[1]) : (p[1] << 8 | p[0]);
+    case 4: {
+        uint32_t v;
+        memcpy(&v, p, 4);
+        return big ? __builtin_bswap32(v) : v;
+    }
+    default: return (int64_t)rd(p, size, big);
+    }
+}
+
+/* One present or absent field of a record that may take default data. */
+static int field_out(rtype_t *rt, int f, int here, const uint8_t *p, int64_t need,
+                     int64_t items, int64_t slot, int is_new, int opt, int opt_here, int64_t r) {
+    const lay_t *L = &rt->lay[f];
+    dflt_t *d = rt->d;
+    int64_t dict_index = -1;
+    if (here && rt->cols[f].dict) {
+        dict_index = dict_intern(&rt->dicts[f], p, need);
+        if (dict_index < 0) return -1;
+    }
+    int out = here; /* 0 null, 1 own value, 2 the default */
+    if (slot >= 0 && defaultable(rt, f)) {
+        int inv = L->inv != NO_BIT && ((opt >> L->inv) & 1);
+        if (is_new) {
+            out = here && !inv;
+            if (out && store_default(rt, f, slot, p, items, dict_index)) return -1;
+        } else {
+            int missing = !here || inv || ((L->flags & F_EMPTY) && need == 0);
+            out = !missing ? 1 : d->vals[slot * rt->nf + f].valid ? 2 : 0;
+        }
+        if (L->none != NO_BIT) {
+            int eff = opt_here ? opt : d->opt_ok[slot] ? d->opt[slot] : 0;
+            if ((eff >> L->none) & 1) out = 0;
+        }
+    }
+    if (out == 1) return write_own(rt, f, p, need, items, dict_index, r);
+    if (out == 2) return write_default(rt, f, &d->vals[slot * rt->nf + f], r);
+    return 0;
+}
+
+/* Decode the record b[pos..end) into row r of rt's columns. -1: no memory.
+ * Three stretches: the leading fixed fields (one bounds check), then field by field
+ * while REC_LEN covers them, then, once a field is cut off, only the fields the
+ * default data fills (every later field is absent: the standard's trailing-field rule). */
 int decode_record(rtype_t *rt, const uint8_t *b, int64_t pos, int64_t end, int64_t r) {
     int64_t counts[MAXF];
-    int alive = 1, big = rt->big, is_new = 0, opt = 0, opt_here = 0;
+    int big = rt->big, is_new = 0, opt = 0, opt_here = 0, f = 0;
     int64_t slot = -1;
     dflt_t *d = rt->d;
-    for (int f = 0; f < rt->nf; f++) {
-        const lay_t *L = &rt->lay[f];
-        const uint8_t *p = NULL;
-        int64_t need = 0, items = 0, skip = 0, dict_index = -1;
-        int here = 0;
-        counts[f] = 0;
-        if (alive) {
-            switch (L->kind) {
-            case K_FIXED: case K_C1:
-                need = L->kind == K_C1 ? 1 : L->size;
-                break;
-            case K_CN: case K_BN:
-                skip = 1;
-                need = pos + 1 <= end ? b[pos] : 0;
-                break;
-            case K_DN:
-                skip = 2;
-                need = pos + 2 <= end ? ((int64_t)rd(b + pos, 2, big) + 7) / 8 : 0;
-                break;
-            default: /* K_ARR, K_NIB: the count field comes first (parse_layout) */
-                items = counts[L->ci];
-                need = L->kind == K_NIB ? (items + 1) / 2 : items * L->size;
-            }
-            if (pos + skip + need <= end) {
-                here = 1;
-                p = b + pos + skip;
-                pos += skip + need;
-            } else {
-                alive = 0;
+    if (end - pos >= rt->prefix_bytes) {
+        for (; f < rt->prefix_n; f++) {
+            col_t *c = &rt->cols[f];
+            const uint8_t *p = b + pos;
+            int size = c->size;
+            put(c->vals + r * size, p, size, big);
+            set_bit(c->valid, r);
+            c->present++;
+            pos += size;
+            if (rt->is_count[f]) counts[f] = load(p, size, big);
+            if (f == rt->test_idx && d) {
+                slot = dflt_lookup(d, (uint64_t)load(p, size, big), &is_new);
+                if (slot < 0) return -1;
             }
         }
-        if (here && rt->is_count[f]) counts[f] = (int64_t)rd(p, L->size, big);
-        if (here && f == rt->test_idx && d) {
-            slot = dflt_lookup(d, rd(p, L->size, big), &is_new);
+    }
+    for (; f < rt->nf; f++) {
+        const lay_t *L = &rt->lay[f];
+        const uint8_t *p = NULL;
+        int64_t need = 0, items = 0, skip = 0;
+        switch (L->kind) {
+        case K_FIXED: case K_C1:
+            need = L->kind == K_C1 ? 1 : L->size;
+            break;
+        case K_CN: case K_BN:
+            skip = 1;
+            need = pos + 1 <= end ? b[pos] : 0;
+            break;
+        case K_DN:
+            skip = 2;
+            need = pos + 2 <= end ? ((int64_t)rd(b + pos, 2, big) + 7) / 8 : 0;
+            break;
+        default: /* K_ARR, K_NIB: the count field comes first (parse_layout) */
+            items = counts[L->ci];
+            need = L->kind == K_NIB ? (items + 1) / 2 : items * L->size;
+        }
+        if (pos + skip + need > end) break; /* cut off here: this and every later field */
+        p = b + pos + skip;
+        pos += skip + need;
+        counts[f] = rt->is_count[f] ? load(p, L->size, big) : 0;
+        if (f == rt->test_idx && d) {
+            slot = dflt_lookup(d, (uint64_t)load(p, L->size, big), &is_new);
             if (slot < 0) return -1;
         }
         if (f == rt->opt_idx) {
-            if (here) {
-                opt = p[0];
-                opt_here = 1;
-            }
+            opt = p[0];
+            opt_here = 1;
             if (is_new) {
-                d->opt_ok[slot] = (uint8_t)here;
+                d->opt_ok[slot] = 1;
                 d->opt[slot] = (uint8_t)opt;
             }
         }
-        if (here && rt->cols[f].dict) {
-            dict_index = dict_intern(&rt->dicts[f], p, need);
-            if (dict_index < 0) return -1;
+        if (slot < 0 && !rt->cols[f].dict) { /* no default data: the value as written */
+            if (write_own(rt, f, p, need, items, -1, r)) return -1;
+        } else if (field_out(rt, f, 1, p, need, items, slot, is_new, opt, opt_here, r)) {
+            return -1;
         }
-        int out = here; /* 0 null, 1 own value, 2 the default */
-        if (slot >= 0 && defaultable(rt, f)) {
-            int inv = L->inv != NO_BIT && ((opt >> L->inv) & 1);
-            if (is_new) {
-                out = here && !inv;
-                if (out && store_default(rt, f, slot, p, items, dict_index)) return -1;
-            } else {
-                int missing = !here || inv || ((L->flags & F_EMPTY) && need == 0);
-                out = !missing ? 1 : d->vals[slot * rt->nf + f].valid ? 2 : 0;
-            }
-            if (L->none != NO_BIT) {
-                int eff = opt_here ? opt : d->opt_ok[slot] ? d->opt[slot] : 0;
-                if ((eff >> L->none) & 1) out = 0;
-            }
-        }
-        if (out == 1 && write_own(rt, f, p, need, items, dict_index, r)) return -1;
-        if (out == 2 && write_default(rt, f, &d->vals[slot * rt->nf + f], r)) return -1;
+    }
+    if (rt->tail_from) rt->tail_from[r] = NO_BIT;
+    if (slot < 0 || is_new) return 0; /* absent fields stay null (a new slot keeps none) */
+    if (rt->tail_from) {
+        rt->tail_from[r] = (uint8_t)f;
+        rt->tail_slot[r] = slot;
+        rt->tail_opt[r] = (uint8_t)(opt_here ? opt : d->opt_ok[slot] ? d->opt[slot] : 0);
+    }
+    for (int k = 0; k < rt->n_dfl; k++) {
+        int g = rt->dfl[k];
+        if (g < f || (rt->tail_from && deferred(rt, g))) continue;
+        if (field_out(rt, g, 0, NULL, 0, 0, slot, 0, opt, opt_here, r)) return -1;
     }
     return 0;
+}
+
+/* The defaults of the cut-off fields decode_record left for later, one column at a
+ * time: the same rule as field_out for a field that is absent from a later record. */
+void rtype_fill_defaults(rtype_t *rt, int64_t n) {
+    const dflt_t *d = rt->d;
+    for (int k = 0; k < rt->n_dfl; k++) {
+        int g = rt->dfl[k];
+        if (!deferred(rt, g)) continue;
+        col_t *c = &rt->cols[g];
+        int none = rt->lay[g].none, size = c->dict ? 4 : c->size;
+        for (int64_t r = 0; r < n; r++) {
+            if (rt->tail_from[r] > g) continue;
+            const dval_t *v = &d->vals[rt->tail_slot[r] * rt->nf + g];
+            if (!v->valid || (none != NO_BIT && ((rt->tail_opt[r] >> none) & 1))) continue;
+            put(c->vals + r * size, (const uint8_t *)&v->v, size, 0); /* native already */
+            set_bit(c->valid, r);
+            c->present++;
+        }
+    }
 }

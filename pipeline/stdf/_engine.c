@@ -248,10 +248,15 @@ static int out_init(Engine *e, spec_t *s, out_t *o) {
     rt->cols = o->cols;
     rt->d = s->has_dflt ? &s->d : NULL;
     rt->dicts = s->dicts;
-    memset(rt->is_count, 0, sizeof(rt->is_count));
-    for (int f = 0; f < s->nf; f++)
-        if (s->lay[f].kind == K_ARR || s->lay[f].kind == K_NIB) rt->is_count[s->lay[f].ci] = 1;
-    return cols_init(o->cols, s->lay, s->nf, n, 1);
+    if (cols_init(o->cols, s->lay, s->nf, n, 1)) return -1;
+    rtype_prepare(rt);
+    if (rt->d) {
+        rt->tail_slot = (int64_t *)malloc(sizeof(int64_t) * (size_t)(n ? n : 1));
+        rt->tail_from = (uint8_t *)malloc((size_t)(n ? n : 1));
+        rt->tail_opt = (uint8_t *)malloc((size_t)(n ? n : 1));
+        if (!rt->tail_slot || !rt->tail_from || !rt->tail_opt) return -1;
+    }
+    return 0;
 }
 
 static void out_free(out_t *o, int nf) {
@@ -261,6 +266,9 @@ static void out_free(out_t *o, int nf) {
     }
     Py_CLEAR(o->pos_o);
     cols_free(o->cols, nf);
+    free(o->rt.tail_slot);
+    free(o->rt.tail_from);
+    free(o->rt.tail_opt);
 }
 
 static inline void ctx_put(out_t *o, int k, int size, int64_t r, int64_t v, int nullable) {
@@ -389,6 +397,8 @@ static PyObject *engine_batch(Engine *e, PyObject *args) {
             memcpy(PyBytes_AS_STRING(ot->pos_o) + r * 8, &i, 8);
         }
     }
+    for (int s = 0; s < e->nspec; s++)
+        if (outs[s].n && outs[s].rt.tail_from) rtype_fill_defaults(&outs[s].rt, outs[s].n);
     PyObject *list = PyList_New(0);
     if (!list) goto done;
     for (int key = 0; key < 65536; key++) { /* key order, as the numpy path groups them */

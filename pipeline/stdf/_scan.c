@@ -90,9 +90,8 @@ static PyObject *decode(PyObject *self, PyObject *args) {
     rt.big = big;
     rt.test_idx = rt.opt_idx = -1;
     rt.cols = cols;
-    for (int f = 0; f < nf; f++)
-        if (layout[f].kind == K_ARR || layout[f].kind == K_NIB) rt.is_count[layout[f].ci] = 1;
     if (cols_init(cols, layout, nf, n, 0)) goto done;
+    rtype_prepare(&rt);
     int failed = 0;
     for (int64_t r = 0; r < n && !failed; r++)
         failed = decode_record(&rt, (const uint8_t *)buf.buf, o[r], o[r] + l[r], r);

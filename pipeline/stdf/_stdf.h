@@ -84,16 +84,27 @@ typedef struct {
 typedef struct {
     const lay_t *lay;
     int nf, big, test_idx, opt_idx;
-    uint8_t is_count[MAXF];
     col_t *cols;    /* nf */
     dflt_t *d;      /* NULL: no default data */
     dict_t *dicts;  /* nf, or NULL */
+    /* set by rtype_prepare */
+    uint8_t is_count[MAXF];
+    int prefix_n;       /* leading fixed fields with no default data */
+    int64_t prefix_bytes;
+    int n_dfl;          /* fields the default data can fill, in layout order */
+    uint8_t dfl[MAXF];
+    /* Rows whose cut-off fields take defaults, filled column by column afterwards
+     * (rtype_fill_defaults) for fixed and dictionary columns; NULL: fill inline. */
+    int64_t *tail_slot;
+    uint8_t *tail_from, *tail_opt;
 } rtype_t;
 
 int parse_layout(const uint8_t *raw, Py_ssize_t len, lay_t *out, int *nf);
 int cols_init(col_t *cols, const lay_t *lay, int nf, int64_t n, int with_dict);
 void cols_free(col_t *cols, int nf);
 PyObject *col_finish(col_t *c); /* steals the column's buffers */
+void rtype_prepare(rtype_t *rt); /* after cols_init */
+void rtype_fill_defaults(rtype_t *rt, int64_t n);
 int decode_record(rtype_t *rt, const uint8_t *b, int64_t pos, int64_t end, int64_t r);
 void dict_free(dict_t *d);
 PyObject *dict_export(dict_t *d);
@@ -106,13 +117,37 @@ static inline uint64_t rd(const uint8_t *p, int size, int big) {
     return v;
 }
 
-/* Values are stored native (little-endian on every machine we build for). */
+/* Values are stored native (little-endian on every machine we build for). The sizes
+ * are spelled out so that each copy is one load and one store. */
 static inline void put(uint8_t *dst, const uint8_t *src, int size, int big) {
-    if (!big) {
-        memcpy(dst, src, (size_t)size);
+    switch (size) {
+    case 1:
+        *dst = *src;
+        return;
+    case 2: {
+        uint16_t v;
+        memcpy(&v, src, 2);
+        if (big) v = __builtin_bswap16(v);
+        memcpy(dst, &v, 2);
         return;
     }
-    for (int i = 0; i < size; i++) dst[i] = src[size - 1 - i];
+    case 4: {
+        uint32_t v;
+        memcpy(&v, src, 4);
+        if (big) v = __builtin_bswap32(v);
+        memcpy(dst, &v, 4);
+        return;
+    }
+    case 8: {
+        uint64_t v;
+        memcpy(&v, src, 8);
+        if (big) v = __builtin_bswap64(v);
+        memcpy(dst, &v, 8);
+        return;
+    }
+    default:
+        for (int i = 0; i < size; i++) dst[i] = src[big ? size - 1 - i : i];
+    }
 }
 
 static inline void set_bit(uint8_t *bits, int64_t r) { bits[r >> 3] |= (uint8_t)(1u << (r & 7)); }

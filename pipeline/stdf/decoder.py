@@ -32,6 +32,8 @@ from .walk import RESULT_RECORDS, NumpyEngine
 # REC_TYP values the standard defines (STDF V4 "Record Types" and the 2007 addendum).
 # Anything else means the stream has lost its record boundaries: stop there.
 VALID_TYP = frozenset({0, 1, 2, 5, 10, 15, 20, 50, 180, 181})
+_VALID_LUT = np.zeros(256, dtype=bool)
+_VALID_LUT[list(VALID_TYP)] = True
 STRUCTURAL = ("PIR", "PRR", "BPS", "EPS")
 MAX_SECTION_DEPTH = 64
 PATHS = ("c", "numpy")
@@ -81,15 +83,24 @@ class Decoder:
     def feed(self, data: bytes) -> list[tuple[str, pa.Table]]:
         if self._stopped:
             return []
+        need = max(self.limits.batch_bytes, 6)
+        if not self._buf and len(data) >= need:
+            # Nothing held over: decode straight from the caller's bytes, keep only the
+            # incomplete record at the end (saves copying every batch in and out).
+            with memoryview(data) as view:
+                out, used = self._process(view)
+                if not self._stopped:
+                    self._buf += view[used:]
+            return out
         self._buf += data
         # At least the 6-byte FAR: the byte order is read from it, so a smaller batch
         # must wait for more data rather than call the stream too short.
-        if len(self._buf) < max(self.limits.batch_bytes, 6):
+        if len(self._buf) < need:
             return []
-        return self._process()
+        return self._process_held()
 
     def close(self) -> list[tuple[str, pa.Table]]:
-        out = [] if self._stopped else self._process()
+        out = [] if self._stopped else self._process_held()
         if self._buf and not self._stopped and self.damage is None:
             self.damage = (f"file ends inside a record: {len(self._buf)} bytes after the "
                            f"last complete record at byte {self._base}")
@@ -112,17 +123,25 @@ class Decoder:
         return self._rec
 
     # -- batches --------------------------------------------------------------------
-    def _process(self) -> list[tuple[str, pa.Table]]:
+    def _process_held(self) -> list[tuple[str, pa.Table]]:
+        with memoryview(self._buf) as view:
+            out, used = self._process(view)
+        del self._buf[:used]
+        return out
+
+    def _process(self, buf: memoryview) -> tuple[list[tuple[str, pa.Table]], int]:
+        """Decode the complete records at the start of ``buf``; returns the tables and
+        how many bytes they took."""
         if self.endian is None:
-            if len(self._buf) < 6:
-                if not self._buf:
+            if len(buf) < 6:
+                if not len(buf):
                     raise FormatError("empty file")
                 raise FormatError("too short to be STDF (no complete FAR record)")
-            self.endian = detect_endian(bytes(self._buf[:6]))
+            self.endian = detect_endian(bytes(buf[:6]))
             engine = native.NativeEngine if self.path == "c" else NumpyEngine
             self._engine = engine(self.endian, self.limits.max_section_depth)
-        offs, lens, typ, sub, end = scan(self._buf, 0, self.endian == ">")
-        stop = self._first_damage(offs, lens, typ, sub)
+        offs, lens, typ, sub, end = scan(buf, 0, self.endian == ">")
+        stop = self._first_damage(buf, offs, lens, typ, sub)
         if stop is not None:
             # Damage at record k: decode the records before it, record why, and stop. Found
             # before any record of the batch is decoded, so the batch's earlier records are
@@ -134,11 +153,9 @@ class Decoder:
         first_rec = self._rec
         self._rec += len(offs)
         assert self._engine is not None
-        with memoryview(self._buf) as view:
-            unknown, tables = self._engine.batch(view[:end], offs, lens, first_rec)
-        del self._buf[:end]
+        unknown, tables = self._engine.batch(buf[:end], offs, lens, first_rec)
         self._base += end
-        return self._outputs(unknown, tables)
+        return self._outputs(unknown, tables), end
 
     def _outputs(self, unknown: int,
                  tables: list[tuple[Record, pa.Table | None, int]]) -> list[tuple[str, pa.Table]]:
@@ -168,21 +185,21 @@ class Decoder:
                 out.extend(self._release(name, None))
         return out
 
-    def _first_damage(self, offs: np.ndarray, lens: np.ndarray, typ: np.ndarray,
-                      sub: np.ndarray) -> tuple[int, str] | None:
+    def _first_damage(self, buf: memoryview, offs: np.ndarray, lens: np.ndarray,
+                      typ: np.ndarray, sub: np.ndarray) -> tuple[int, str] | None:
         """The first record of the batch that decoding cannot go past, and why: a REC_TYP
         the standard does not define (the boundaries are lost), a BPS nested deeper than
         ``Limits.max_section_depth``, or a GDR with a V*n type code STDF V4 does not
         define. Each check looks only at the records before the previous one's stop."""
         found = None
         k = len(offs)
-        bad = np.flatnonzero(~np.isin(typ, list(VALID_TYP)))
-        if bad.size:
-            k = int(bad[0])
+        valid = _VALID_LUT[typ]
+        if not valid.all():
+            k = int(np.argmin(valid))
             found = (k, f"record boundaries lost: REC_TYP {int(typ[k])} is not an STDF V4 "
                         f"record type, at byte {self._base + int(offs[k])}")
         for check in (self._too_deep, self._bad_gdr):
-            got = check(offs[:k], lens[:k], typ[:k], sub[:k])
+            got = check(buf, offs[:k], lens[:k], typ[:k], sub[:k])
             if got is not None:
                 k, why = got
                 found = (k, f"{why} ({self._name_of(typ[k], sub[k])} at record "
@@ -194,38 +211,40 @@ class Decoder:
     def _name_of(typ: int, sub: int) -> str:
         return RECORDS[(int(typ), int(sub))].name
 
-    def _too_deep(self, offs: np.ndarray, lens: np.ndarray, typ: np.ndarray,
+    def _too_deep(self, buf: memoryview, offs: np.ndarray, lens: np.ndarray, typ: np.ndarray,
                   sub: np.ndarray) -> tuple[int, str] | None:
         """The BPS that would nest sections deeper than the limit (mirrors the engines'
         sections: an EPS with no section open is ignored)."""
         assert self._engine is not None
         bps, eps = BY_NAME["BPS"], BY_NAME["EPS"]
-        step = ((typ == bps.typ) & (sub == bps.sub)).astype(np.int64)
-        step -= (typ == eps.typ) & (sub == eps.sub)
-        at = np.flatnonzero(step)
+        at = np.flatnonzero(typ == bps.typ)  # BPS and EPS share REC_TYP 20
+        sec = sub[at]
+        step = (sec == bps.sub).astype(np.int64) - (sec == eps.sub)
+        at, step = at[step != 0], step[step != 0]
         open_now = self._engine.depth
-        depth = open_now + np.cumsum(step[at])  # depth after each BPS/EPS
+        depth = open_now + np.cumsum(step)  # depth after each BPS/EPS
         limit = self.limits.max_section_depth
         if not at.size or (depth.min() >= 0 and depth.max() <= limit):
             return None  # the usual case, decided without a loop
         d = open_now
-        for i in at:
-            if step[i] < 0:
+        for i, up in zip(at.tolist(), step.tolist(), strict=True):
+            if up < 0:
                 d = max(d - 1, 0)
             elif d >= limit:
-                return int(i), f"program sections nested deeper than {limit}"
+                return i, f"program sections nested deeper than {limit}"
             else:
                 d += 1
         return None
 
-    def _bad_gdr(self, offs: np.ndarray, lens: np.ndarray, typ: np.ndarray,
+    def _bad_gdr(self, buf: memoryview, offs: np.ndarray, lens: np.ndarray, typ: np.ndarray,
                  sub: np.ndarray) -> tuple[int, str] | None:
         """The first GDR whose V*n items use a type code the standard does not define."""
         gdr = BY_NAME["GDR"]
-        for i in np.flatnonzero((typ == gdr.typ) & (sub == gdr.sub)):
+        at = np.flatnonzero(typ == gdr.typ)
+        for i in at[sub[at] == gdr.sub]:
             o, n = int(offs[i]) + 4, int(lens[i])
             try:
-                decode_record(gdr, bytes(self._buf[o:o + n]), self.endian or "<")
+                decode_record(gdr, bytes(buf[o:o + n]), self.endian or "<")
             except FormatError as e:
                 return int(i), str(e)
         return None

@@ -18,10 +18,10 @@ DTR/GDR carry the touchdown and section they follow.
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from typing import Any
 
 import numpy as np
 import pyarrow as pa
-import pyarrow.compute as pc
 
 from .columnar import RUN_PAD, decode_columns
 from .records import BY_NAME, DEFAULT_BITS, DEFAULTED, NO_LIMIT_BITS, RECORDS, Record
@@ -240,6 +240,7 @@ class NumpyEngine:
         """records.DEFAULTED, DEFAULT_BITS and NO_LIMIT_BITS; empty TEST_TXT is left as
         written (the results view names it from the first named record of the file). A
         record without TEST_NUM takes no default data."""
+        pc = _compute()
         cols = [f.lower() for f in DEFAULTED[name]]
         bits = {k.lower(): b for k, b in DEFAULT_BITS[name].items()}
         keyed = _valid(t.column("test_num").combine_chunks())
@@ -325,6 +326,14 @@ class _Timeline:
 
 
 # -- helpers ------------------------------------------------------------------------
+def _compute() -> Any:
+    """pyarrow.compute, imported when first needed: it takes a while, and only this path
+    uses it."""
+    import pyarrow.compute
+
+    return pyarrow.compute
+
+
 def _first_index(keys: np.ndarray, seen: set[int]) -> list[int]:
     """Row of the first occurrence of each key not yet seen (stream order)."""
     if keys.size == 0:
@@ -352,6 +361,7 @@ def _choose(use_default: np.ndarray, defaults: pa.Array, pos: np.ndarray,
             col: pa.Array) -> pa.Array:
     """Per row: defaults[pos] where use_default, else col. Text comes out dictionary-
     encoded (a handful of distinct units and formats), which costs indices, not copies."""
+    pc = _compute()
     if not pa.types.is_large_string(col.type):
         return pc.if_else(_bools(use_default), defaults.take(_ints(pos)), col)
     own = pc.dictionary_encode(col)
@@ -388,6 +398,7 @@ def _ints(vals: np.ndarray) -> pa.Array:
 
 
 def _null_where(t: pa.Table, masks: dict[str, np.ndarray]) -> pa.Table:
+    pc = _compute()
     for c, m in masks.items():
         if not m.any():
             continue
