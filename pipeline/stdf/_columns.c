@@ -96,7 +96,6 @@ static inline void end_row(col_t *c, int64_t r) {
     c->offs[r + 1] = c->kind >= K_ARR ? c->items : c->data.len;
     c->filled = r + 1;
     set_bit(c->valid, r);
-    c->present++;
 }
 
 /* Latin-1 bytes as UTF-8: bytes above 0x7F become two. */
@@ -116,14 +115,26 @@ static int append_text(col_t *c, const uint8_t *p, int64_t n) {
     return 0;
 }
 
-PyObject *bitmap_or_none(PyObject *valid_o, int64_t n, int64_t present) {
-    if (present == n) Py_RETURN_NONE;
+/* The validity bitmap of n rows, or None when every row is valid (Arrow's "no nulls"). */
+PyObject *bitmap_or_none(PyObject *valid_o, int64_t n) {
+    const uint8_t *bits = (const uint8_t *)PyBytes_AS_STRING(valid_o);
+    int64_t full = n / 8, i = 0;
+    for (; i + 8 <= full; i += 8) {
+        uint64_t w;
+        memcpy(&w, bits + i, 8);
+        if (w != UINT64_MAX) goto some_null;
+    }
+    for (; i < full; i++)
+        if (bits[i] != 0xFF) goto some_null;
+    if (n % 8 && bits[full] != (uint8_t)((1u << (n % 8)) - 1)) goto some_null;
+    Py_RETURN_NONE;
+some_null:
     Py_INCREF(valid_o);
     return valid_o;
 }
 
 PyObject *col_finish(col_t *c) {
-    PyObject *valid = bitmap_or_none(c->valid_o, c->n, c->present), *out = NULL;
+    PyObject *valid = bitmap_or_none(c->valid_o, c->n), *out = NULL;
     if (c->kind == K_FIXED || c->dict) {
         out = Py_BuildValue("(iNO)", c->dict ? 2 : 0, valid, c->vals_o);
     } else {
@@ -333,7 +344,6 @@ static int write_own(rtype_t *rt, int f, const uint8_t *p, int64_t need, int64_t
         return 0;
     }
     set_bit(c->valid, r);
-    c->present++;
     return 0;
 }
 
@@ -355,7 +365,6 @@ static int write_default(rtype_t *rt, int f, const dval_t *v, int64_t r) {
         return 0;
     }
     set_bit(c->valid, r);
-    c->present++;
     return 0;
 }
 
@@ -384,6 +393,12 @@ static inline int defaultable(const rtype_t *rt, int f) {
            (c->kind == K_FIXED || c->dict || c->kind == K_ARR || c->kind == K_NIB);
 }
 
+/* Fixed and dictionary columns take their defaults after the record pass; arrays append
+ * to their data in row order, so they take theirs inline. */
+static inline int deferred(const rtype_t *rt, int f) {
+    return rt->cols[f].kind == K_FIXED || rt->cols[f].dict;
+}
+
 void rtype_prepare(rtype_t *rt) {
     memset(rt->is_count, 0, sizeof(rt->is_count));
     for (int f = 0; f < rt->nf; f++)
@@ -391,17 +406,25 @@ void rtype_prepare(rtype_t *rt) {
     rt->prefix_n = 0;
     rt->prefix_bytes = 0;
     while (rt->prefix_n < rt->nf && rt->lay[rt->prefix_n].kind == K_FIXED &&
-           !(rt->lay[rt->prefix_n].flags & F_DEFAULT) && rt->prefix_n != rt->opt_idx)
+           !(rt->lay[rt->prefix_n].flags & F_DEFAULT) && rt->prefix_n != rt->opt_idx) {
+        rt->prefix_off[rt->prefix_n] = rt->prefix_bytes;
         rt->prefix_bytes += rt->lay[rt->prefix_n++].size;
+    }
+    /* Almost every record holds the leading fields: they start valid, and a record cut
+     * short of them clears its bits (decode_record). */
+    for (int f = 0; f < rt->prefix_n; f++) {
+        col_t *c = &rt->cols[f];
+        memset(c->valid, 0xFF, (size_t)(c->n / 8));
+        if (c->n % 8) c->valid[c->n / 8] = (uint8_t)((1u << (c->n % 8)) - 1);
+    }
     rt->n_dfl = 0;
-    for (int f = 0; f < rt->nf; f++)
-        if (defaultable(rt, f)) rt->dfl[rt->n_dfl++] = (uint8_t)f;
-}
-
-/* Fixed and dictionary columns take their defaults after the record pass; arrays append
- * to their data in row order, so they take theirs inline. */
-static inline int deferred(const rtype_t *rt, int f) {
-    return rt->cols[f].kind == K_FIXED || rt->cols[f].dict;
+    rt->all_deferred = 1;
+    for (int f = 0; f < rt->nf; f++) {
+        if (!defaultable(rt, f)) continue;
+        rt->dfl_deferred[rt->n_dfl] = (uint8_t)deferred(rt, f);
+        rt->all_deferred &= deferred(rt, f);
+        rt->dfl[rt->n_dfl++] = (uint8_t)f;
+    }
 }
 
 static inline int64_t load(const uint8_t *p, int size, int big) {
@@ -456,21 +479,21 @@ int decode_record(rtype_t *rt, const uint8_t *b, int64_t pos, int64_t end, int64
     int big = rt->big, is_new = 0, opt = 0, opt_here = 0, f = 0;
     int64_t slot = -1;
     dflt_t *d = rt->d;
-    if (end - pos >= rt->prefix_bytes) {
+    if (end - pos >= rt->prefix_bytes) { /* the leading fixed fields, all present */
         for (; f < rt->prefix_n; f++) {
             col_t *c = &rt->cols[f];
-            const uint8_t *p = b + pos;
-            int size = c->size;
-            put(c->vals + r * size, p, size, big);
-            set_bit(c->valid, r);
-            c->present++;
-            pos += size;
-            if (rt->is_count[f]) counts[f] = load(p, size, big);
-            if (f == rt->test_idx && d) {
-                slot = dflt_lookup(d, (uint64_t)load(p, size, big), &is_new);
+            put(c->vals + r * c->size, b + pos + rt->prefix_off[f], c->size, big);
+        }
+        for (int g = 0; g < rt->prefix_n; g++) {
+            if (!rt->is_count[g] && (g != rt->test_idx || !d)) continue;
+            int64_t v = load(b + pos + rt->prefix_off[g], rt->lay[g].size, big);
+            counts[g] = v;
+            if (g == rt->test_idx && d) {
+                slot = dflt_lookup(d, (uint64_t)v, &is_new);
                 if (slot < 0) return -1;
             }
         }
+        pos += rt->prefix_bytes;
     }
     for (; f < rt->nf; f++) {
         const lay_t *L = &rt->lay[f];
@@ -514,16 +537,18 @@ int decode_record(rtype_t *rt, const uint8_t *b, int64_t pos, int64_t end, int64
             return -1;
         }
     }
+    for (int g = f; g < rt->prefix_n; g++) clear_bit(rt->cols[g].valid, r); /* cut short */
     if (rt->tail_from) rt->tail_from[r] = NO_BIT;
     if (slot < 0 || is_new) return 0; /* absent fields stay null (a new slot keeps none) */
     if (rt->tail_from) {
         rt->tail_from[r] = (uint8_t)f;
         rt->tail_slot[r] = slot;
         rt->tail_opt[r] = (uint8_t)(opt_here ? opt : d->opt_ok[slot] ? d->opt[slot] : 0);
+        if (rt->all_deferred) return 0;
     }
     for (int k = 0; k < rt->n_dfl; k++) {
         int g = rt->dfl[k];
-        if (g < f || (rt->tail_from && deferred(rt, g))) continue;
+        if (g < f || (rt->tail_from && rt->dfl_deferred[k])) continue;
         if (field_out(rt, g, 0, NULL, 0, 0, slot, 0, opt, opt_here, r)) return -1;
     }
     return 0;
@@ -538,13 +563,19 @@ void rtype_fill_defaults(rtype_t *rt, int64_t n) {
         if (!deferred(rt, g)) continue;
         col_t *c = &rt->cols[g];
         int none = rt->lay[g].none, size = c->dict ? 4 : c->size;
+        uint8_t bits = 0; /* this byte's validity, stored once per 8 rows */
         for (int64_t r = 0; r < n; r++) {
-            if (rt->tail_from[r] > g) continue;
-            const dval_t *v = &d->vals[rt->tail_slot[r] * rt->nf + g];
-            if (!v->valid || (none != NO_BIT && ((rt->tail_opt[r] >> none) & 1))) continue;
-            put(c->vals + r * size, (const uint8_t *)&v->v, size, 0); /* native already */
-            set_bit(c->valid, r);
-            c->present++;
+            if (rt->tail_from[r] <= g) {
+                const dval_t *v = &d->vals[rt->tail_slot[r] * rt->nf + g];
+                if (v->valid && (none == NO_BIT || !((rt->tail_opt[r] >> none) & 1))) {
+                    put(c->vals + r * size, (const uint8_t *)&v->v, size, 0); /* native */
+                    bits |= (uint8_t)(1u << (r & 7));
+                }
+            }
+            if ((r & 7) == 7 || r == n - 1) {
+                c->valid[r >> 3] |= bits;
+                bits = 0;
+            }
         }
     }
 }

@@ -177,10 +177,7 @@ static int64_t close_part(Engine *e, int hs) {
 }
 
 static int begin_section(Engine *e, const uint8_t *p, int64_t n, int64_t rec) {
-    if (e->depth >= e->max_depth) { /* decoder.py stops a batch before such a BPS */
-        PyErr_SetString(PyExc_RuntimeError, "program sections nested past the limit");
-        return -1;
-    }
+    if (e->depth >= e->max_depth) return -2; /* decoder.py stops a batch before such a BPS */
     int64_t ln = n >= 1 ? p[0] : 0;
     if (ln > n - 1) ln = n > 0 ? n - 1 : 0;
     if (iv_push(&e->sec_parent, e->depth ? e->stack[e->depth - 1] : -1) ||
@@ -209,7 +206,6 @@ typedef struct {
     rtype_t rt;
     col_t cols[MAXF];
     PyObject *ctx_o[5], *ctx_valid[5];
-    int64_t ctx_present[5];
     int nctx;
     PyObject *pos_o; /* positions in the batch (reference-decoded types) */
 } out_t;
@@ -279,10 +275,7 @@ static inline void ctx_put(out_t *o, int k, int size, int64_t r, int64_t v, int 
         int32_t x = (int32_t)v;
         memcpy(p, &x, 4);
     }
-    if (nullable && v >= 0) {
-        set_bit((uint8_t *)PyBytes_AS_STRING(o->ctx_valid[k]), r);
-        o->ctx_present[k]++;
-    }
+    if (nullable && v >= 0) set_bit((uint8_t *)PyBytes_AS_STRING(o->ctx_valid[k]), r);
 }
 
 /* The record at payload b[0..n): structure first, then its context columns. */
@@ -322,7 +315,7 @@ static PyObject *out_build(spec_t *s, out_t *o) {
         Py_INCREF(valid);
         if (o->ctx_valid[k]) {
             Py_DECREF(valid);
-            valid = bitmap_or_none(o->ctx_valid[k], o->n, o->ctx_present[k]);
+            valid = bitmap_or_none(o->ctx_valid[k], o->n);
         }
         PyObject *t = Py_BuildValue("(iNO)", 0, valid, o->ctx_o[k]);
         if (!t) goto fail;
@@ -377,28 +370,33 @@ static PyObject *engine_batch(Engine *e, PyObject *args) {
     }
     for (int s = 0; s < e->nspec; s++)
         if (outs[s].n && out_init(e, &e->specs[s], &outs[s])) goto done;
-    for (int64_t i = 0; i < n; i++) {
+    int failed = 0; /* -1 no memory, -2 sections nested past the limit */
+    Py_BEGIN_ALLOW_THREADS /* the staging writer runs meanwhile */
+    for (int64_t i = 0; i < n && !failed; i++) {
         int s = e->keymap[b[o[i] + 2] << 8 | b[o[i] + 3]];
         if (s < 0) continue;
         spec_t *sp = &e->specs[s];
         out_t *ot = &outs[s];
         const uint8_t *pay = b + o[i] + 4;
         int64_t r = ot->row++;
-        if (one_record(e, sp, ot, pay, l[i], first_rec + i, r)) {
-            if (!PyErr_Occurred()) PyErr_NoMemory();
-            goto done;
-        }
-        if (sp->has_layout) {
-            if (decode_record(&ot->rt, pay, 0, l[i], r)) {
-                PyErr_NoMemory();
-                goto done;
-            }
-        } else if (ot->pos_o) {
+        failed = one_record(e, sp, ot, pay, l[i], first_rec + i, r);
+        if (failed) break;
+        if (sp->has_layout)
+            failed = decode_record(&ot->rt, pay, 0, l[i], r);
+        else if (ot->pos_o)
             memcpy(PyBytes_AS_STRING(ot->pos_o) + r * 8, &i, 8);
-        }
     }
-    for (int s = 0; s < e->nspec; s++)
+    for (int s = 0; s < e->nspec && !failed; s++)
         if (outs[s].n && outs[s].rt.tail_from) rtype_fill_defaults(&outs[s].rt, outs[s].n);
+    Py_END_ALLOW_THREADS
+    if (failed == -2) {
+        PyErr_SetString(PyExc_RuntimeError, "program sections nested past the limit");
+        goto done;
+    }
+    if (failed) {
+        PyErr_NoMemory();
+        goto done;
+    }
     PyObject *list = PyList_New(0);
     if (!list) goto done;
     for (int key = 0; key < 65536; key++) { /* key order, as the numpy path groups them */

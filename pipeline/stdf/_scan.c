@@ -93,8 +93,10 @@ static PyObject *decode(PyObject *self, PyObject *args) {
     if (cols_init(cols, layout, nf, n, 0)) goto done;
     rtype_prepare(&rt);
     int failed = 0;
+    Py_BEGIN_ALLOW_THREADS
     for (int64_t r = 0; r < n && !failed; r++)
         failed = decode_record(&rt, (const uint8_t *)buf.buf, o[r], o[r] + l[r], r);
+    Py_END_ALLOW_THREADS
     if (failed) {
         PyErr_NoMemory();
         goto done;

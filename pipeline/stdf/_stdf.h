@@ -43,7 +43,7 @@ void gb_free(gbuf_t *g);
 /* One output column of n rows. */
 typedef struct {
     uint8_t kind, size, dict;
-    int64_t n, present;
+    int64_t n;
     PyObject *valid_o, *vals_o, *offs_o; /* PyBytes, owned until col_finish */
     uint8_t *valid, *vals;
     int64_t *offs;
@@ -89,10 +89,12 @@ typedef struct {
     dict_t *dicts;  /* nf, or NULL */
     /* set by rtype_prepare */
     uint8_t is_count[MAXF];
-    int prefix_n;       /* leading fixed fields with no default data */
+    int prefix_n;       /* leading fixed fields with no default data (valid unless cut) */
     int64_t prefix_bytes;
+    int64_t prefix_off[MAXF];
     int n_dfl;          /* fields the default data can fill, in layout order */
-    uint8_t dfl[MAXF];
+    uint8_t dfl[MAXF], dfl_deferred[MAXF];
+    int all_deferred;   /* every field the default data fills is a deferred one */
     /* Rows whose cut-off fields take defaults, filled column by column afterwards
      * (rtype_fill_defaults) for fixed and dictionary columns; NULL: fill inline. */
     int64_t *tail_slot;
@@ -109,7 +111,7 @@ int decode_record(rtype_t *rt, const uint8_t *b, int64_t pos, int64_t end, int64
 void dict_free(dict_t *d);
 PyObject *dict_export(dict_t *d);
 void dflt_free(dflt_t *d);
-PyObject *bitmap_or_none(PyObject *valid_o, int64_t n, int64_t present);
+PyObject *bitmap_or_none(PyObject *valid_o, int64_t n);
 
 static inline uint64_t rd(const uint8_t *p, int size, int big) {
     uint64_t v = 0;
@@ -151,5 +153,8 @@ static inline void put(uint8_t *dst, const uint8_t *src, int size, int big) {
 }
 
 static inline void set_bit(uint8_t *bits, int64_t r) { bits[r >> 3] |= (uint8_t)(1u << (r & 7)); }
+static inline void clear_bit(uint8_t *bits, int64_t r) {
+    bits[r >> 3] &= (uint8_t)~(1u << (r & 7));
+}
 
 #endif

@@ -261,12 +261,17 @@ class Decoder:
         k = int(ready.sum())
         if ready[:k].all():  # the usual case: only the last touchdown's rows wait
             out, rest = table.slice(0, k), table.slice(k)
+            pk, pi = pk[:k], pi[:k]
         else:
             out, rest = table.filter(_bools(ready)), table.filter(_bools(~ready))
+            pk, pi = pk[ready], pi[ready]
         self._held[name] = [rest] if rest.num_rows else []
         if not k:
             return []
-        part_index = pa.array(pi[ready], pa.int64(), mask=pk[ready] < 0)
+        owned = pk >= 0  # results outside any part have no part_index
+        mask = None if owned.all() else pa.py_buffer(np.packbits(owned, bitorder="little"))
+        part_index = pa.Array.from_buffers(pa.int64(), k, [
+            mask, pa.py_buffer(np.ascontiguousarray(pi, np.int64))])
         out = out.add_column(1, "part_index", part_index)
         return [(name.lower(), out)]
 
