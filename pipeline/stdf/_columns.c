@@ -556,26 +556,42 @@ int decode_record(rtype_t *rt, const uint8_t *b, int64_t pos, int64_t end, int64
 
 /* The defaults of the cut-off fields decode_record left for later, one column at a
  * time: the same rule as field_out for a field that is absent from a later record. */
+#define FILL_LOOP(T)                                                                    \
+    do {                                                                                \
+        T *out = (T *)c->vals;                                                          \
+        uint8_t bits = 0; /* this byte's validity, stored once per 8 rows */            \
+        for (int64_t r = 0; r < n; r++) {                                               \
+            if (rt->tail_from[r] <= g) {                                                \
+                const dval_t *v = &d->vals[rt->tail_slot[r] * rt->nf + g];              \
+                if (v->valid && !((rt->tail_opt[r] >> none) & 1)) {                     \
+                    T x;                                                                \
+                    memcpy(&x, &v->v, sizeof(T)); /* native already */                 \
+                    out[r] = x;                                                         \
+                    bits |= (uint8_t)(1u << (r & 7));                                   \
+                }                                                                       \
+            }                                                                           \
+            if ((r & 7) == 7 || r == n - 1) {                                           \
+                c->valid[r >> 3] |= bits;                                               \
+                bits = 0;                                                               \
+            }                                                                           \
+        }                                                                               \
+    } while (0)
+
+/* The defaults of the cut-off fields decode_record left for later, one column at a
+ * time: the same rule as field_out for a field that is absent from a later record. */
 void rtype_fill_defaults(rtype_t *rt, int64_t n) {
     const dflt_t *d = rt->d;
     for (int k = 0; k < rt->n_dfl; k++) {
         int g = rt->dfl[k];
         if (!deferred(rt, g)) continue;
         col_t *c = &rt->cols[g];
-        int none = rt->lay[g].none, size = c->dict ? 4 : c->size;
-        uint8_t bits = 0; /* this byte's validity, stored once per 8 rows */
-        for (int64_t r = 0; r < n; r++) {
-            if (rt->tail_from[r] <= g) {
-                const dval_t *v = &d->vals[rt->tail_slot[r] * rt->nf + g];
-                if (v->valid && (none == NO_BIT || !((rt->tail_opt[r] >> none) & 1))) {
-                    put(c->vals + r * size, (const uint8_t *)&v->v, size, 0); /* native */
-                    bits |= (uint8_t)(1u << (r & 7));
-                }
-            }
-            if ((r & 7) == 7 || r == n - 1) {
-                c->valid[r >> 3] |= bits;
-                bits = 0;
-            }
+        /* bit 8 of a byte is never set: NO_BIT (255) shifts every flag out */
+        int none = rt->lay[g].none == NO_BIT ? 8 : rt->lay[g].none;
+        switch (c->dict ? 4 : c->size) {
+        case 1: FILL_LOOP(uint8_t); break;
+        case 2: FILL_LOOP(uint16_t); break;
+        case 4: FILL_LOOP(uint32_t); break;
+        default: FILL_LOOP(uint64_t); break;
         }
     }
 }
