@@ -8,6 +8,9 @@ reads past REC_LEN). Missing fields come out as nulls.
 
 No Python object is made per record. The two layouts that cannot be read this way (GDR's
 V*n fields and PLR's arrays of strings) go to the reference decoder in ``codec.py``.
+When the compiled module is built, ``decode_columns`` runs its C twin instead (the same
+columns; the tests compare the two), and ``layout``/``arrow_column`` are the bridge the
+compiled batch engine (``native.py``) uses too.
 """
 
 from __future__ import annotations

@@ -1,9 +1,11 @@
 """The STDF V4 record catalogue: every record as data, not branches.
 
 Each layout is copied from the *Standard Test Data Format (STDF) Specification, Version 4*,
-record by record (field names and order as the standard spells them). Both decoders (the
-columnar one in ``columnar.py`` and the per-record reference in ``codec.py``) and the
-writer are driven by this one table, so a layout fixed here is fixed everywhere.
+record by record (field names and order as the standard spells them). Every decoder (the
+compiled engine, which gets its layouts from ``columnar.layout``, the numpy one in
+``columnar.py``/``walk.py``, the per-record reference in ``codec.py`` and the stream
+reference in ``reference.py``) and the writer are driven by this one table, so a layout
+fixed here is fixed everywhere. So are the default-data rules at the end.
 
 Type codes are the standard's: ``C1 Cn B1 Bn Dn N1 U1 U2 U4 I1 I2 I4 R4 R8 Vn``. An
 array field (the standard's ``kxTYPE``) names the earlier field holding its length in
