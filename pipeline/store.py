@@ -142,13 +142,14 @@ _DELTA_COLUMNS = {"rec_index", "pir_rec_index", "begin_rec", "end_rec"}
 def _parquet_options(schema: pa.Schema) -> dict[str, Any]:
     """Snappy, dictionaries for text only (names, units and formats repeat; text the
     decoder already dictionary-encoded is written as such), statistics only where they
-    prune, delta-encoded record positions. Chosen with
-    bench/bench_parquet.py (DEVELOPERS.md, "Benchmarks"): on the dense benchmark log this
-    writes as fast as any setting tried (lz4 and no compression no faster, zstd levels 1
-    and 3 some 60 % slower), and the delta positions cut the files by a third (57 to 39 MB
-    for 100 MB of log). Dictionaries for every column cost twice the time; none at all
-    makes the text columns slower to write and to read. Snappy rather than lz4 (a few MB
-    smaller) because every Parquet reader reads snappy."""
+    prune, delta-encoded record positions. Chosen with bench/bench_parquet.py on the dense
+    benchmark log (100 MB, 4.4 M rows; load average 1.0; ratios to the setting before it,
+    which wrote the dictionary-encoded units and formats plain): write time 0.73, files
+    0.62 (63 to 39 MB), a typical DuckDB query 0.46. lz4 was as fast and a third smaller
+    again, but not every Parquet reader reads LZ4_RAW, and every one reads snappy; zstd
+    level 1 or 3 took 1.2 times as long as before, dictionaries on every column 1.4,
+    none at all 0.9 (and slower queries); whole-log row groups saved a little more time
+    but would hold a whole log in memory."""
     text = [f.name for f in schema if pa.types.is_large_string(f.type)
             or pa.types.is_string(f.type) or pa.types.is_dictionary(f.type)]
     options: dict[str, Any] = {
