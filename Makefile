@@ -7,10 +7,16 @@ STAMP  := $(VENV)/.installed
 
 .PHONY: install demo test bench bench-store fuzz lint golden clean
 
-$(STAMP): pyproject.toml
+# The compiled decoder (pipeline/stdf/_*.c) is rebuilt whenever its sources change; when
+# it cannot be built (no C compiler), the install goes on and says so in one line.
+CSRC   := $(wildcard pipeline/stdf/_*.c pipeline/stdf/_*.h)
+
+$(STAMP): pyproject.toml $(CSRC)
 	@test -x $(PY) || $(PYTHON) -m venv $(VENV)
 	$(PY) -m pip install --quiet --disable-pip-version-check --upgrade pip==25.3
 	$(PY) -m pip install --quiet --disable-pip-version-check -e '.[dev]'
+	@$(PY) -c "from pipeline.stdf import native; assert native.available()" 2>/dev/null || \
+	  echo "tandem: the compiled decoder did not build (no C compiler?); the numpy path serves: same results, slower"
 	@touch $(STAMP)
 
 install: $(STAMP)
@@ -22,7 +28,7 @@ test: $(STAMP)
 	$(PY) -m pytest -q -m "not slow and not fuzz"
 
 bench: $(STAMP)
-	$(PY) bench/bench_ingest.py
+	$(PY) bench/bench_ingest.py $(BENCH_ARGS)
 
 bench-store: $(STAMP)
 	$(PY) bench/bench_store.py

@@ -11,6 +11,7 @@ and the commit run here, one log after another, while the workers decode the nex
 from __future__ import annotations
 
 import bz2
+import contextlib
 import datetime as _dt
 import gzip
 import hashlib
@@ -18,9 +19,11 @@ import io
 import json
 import lzma
 import os
+import queue
 import shutil
 import signal
 import sys
+import threading
 import uuid
 import zlib
 from collections.abc import Callable, Iterable, Iterator
@@ -520,11 +523,11 @@ def _decode_stdf(head: bytes, stream: IO[bytes], staged: Staged,
 
     try:
         put(dec.feed(head))
-        while err is None:
-            chunk, err = _read(stream, READ_BYTES)
-            if not chunk:
-                break
-            put(dec.feed(chunk))
+        pieces = _read_ahead(stream, READ_BYTES) if err is None else iter(())
+        for chunk, piece_err in pieces:
+            err = piece_err
+            if chunk:
+                put(dec.feed(chunk))
         if isinstance(err, DecompressionLimit):
             damage = str(err)
         elif err is not None:
@@ -545,6 +548,36 @@ def _mir_lot(batches: list) -> str:
             lot = table.column("lot_id")[0].as_py()
             return lot if lot else UNKNOWN_LOT
     return UNKNOWN_LOT
+
+
+def _read_ahead(stream: IO[bytes], n: int) -> Iterator[tuple[bytes, BaseException | None]]:
+    """``_read(stream, n)`` again and again until the end or an error, the next piece read
+    on a thread while the caller decodes the last one: reading, hashing (HashingReader)
+    and decompressing overlap decoding, whose compiled pass releases the GIL."""
+    pieces: queue.Queue[tuple[bytes, BaseException | None]] = queue.Queue(maxsize=1)
+    stop = threading.Event()
+
+    def reader() -> None:
+        while not stop.is_set():
+            chunk, err = _read(stream, n)
+            pieces.put((chunk, err))
+            if not chunk or err is not None:
+                return
+
+    thread = threading.Thread(target=reader, daemon=True)
+    thread.start()
+    try:
+        while True:
+            chunk, err = pieces.get()
+            yield chunk, err
+            if not chunk or err is not None:
+                return
+    finally:  # the stream is the caller's again (its hash is finished from it) once done
+        stop.set()
+        while thread.is_alive():
+            with contextlib.suppress(queue.Empty):
+                pieces.get_nowait()
+            thread.join(0.01)
 
 
 def _stdf_entry(dec: Decoder, staged: Staged, damage: str | None) -> dict[str, Any]:

@@ -510,6 +510,44 @@ _pair("PTR-after-result", "PTR", {"TEST_NUM": 10000, "HEAD_NUM": 1, "SITE_NUM": 
     w4(b"\x00\x00\x20\x40"),  # RESULT R*4 = 2.5
 ])
 
+# --- STDF V4, PTR 15/10 (a later PTR of test 10000 written in full, with missing values) -
+# The standard's missing values (PTR notes, "Default Data"; from memory of the standard,
+# as the notes sheet states it): a C*n of length 0 for UNITS and the three format
+# strings, and OPT_FLAG bits 2 and 3 for LO_SPEC and HI_SPEC. A later PTR takes those
+# fields from the first PTR of its test number (PTR-full here): UNITS "V", C_RESFMT
+# "%7.3f", LO_SPEC -1.0, HI_SPEC 3.0; the fields it does give are its own.
+_pair("PTR-blank-units", "PTR", {"TEST_NUM": 10000, "HEAD_NUM": 1, "SITE_NUM": 3,
+                                 "TEST_FLG": 0x00, "PARM_FLG": 0x00, "RESULT": 0.75,
+                                 "TEST_TXT": "", "ALARM_ID": "", "OPT_FLAG": 0x0C,
+                                 "RES_SCAL": -3, "LLM_SCAL": 0, "HLM_SCAL": 3,
+                                 "LO_LIMIT": 0.5, "HI_LIMIT": 2.0, "UNITS": "",
+                                 "C_RESFMT": "", "C_LLMFMT": "", "C_HLMFMT": "",
+                                 "LO_SPEC": 0.0, "HI_SPEC": 0.0}, [
+    w2(b"\x26\x00"),          # REC_LEN = 38
+    b(b"\x0f"),               # REC_TYP = 15
+    b(b"\x0a"),               # REC_SUB = 10
+    w4(b"\x10\x27\x00\x00"),  # TEST_NUM U*4 = 10000
+    b(b"\x01"),               # HEAD_NUM U*1 = 1
+    b(b"\x03"),               # SITE_NUM U*1 = 3
+    b(b"\x00"),               # TEST_FLG B*1 = 0
+    b(b"\x00"),               # PARM_FLG B*1 = 0
+    w4(b"\x00\x00\x40\x3f"),  # RESULT R*4 = 0.75
+    b(b"\x00"),               # TEST_TXT C*n, empty
+    b(b"\x00"),               # ALARM_ID C*n, empty
+    b(b"\x0c"),               # OPT_FLAG B*1 = bits 2, 3: LO_SPEC, HI_SPEC invalid
+    b(b"\xfd"),               # RES_SCAL I*1 = -3
+    b(b"\x00"),               # LLM_SCAL I*1 = 0
+    b(b"\x03"),               # HLM_SCAL I*1 = 3
+    w4(b"\x00\x00\x00\x3f"),  # LO_LIMIT R*4 = 0.5 (its own, not the default -0.25)
+    w4(b"\x00\x00\x00\x40"),  # HI_LIMIT R*4 = 2.0
+    b(b"\x00"),               # UNITS C*n, length 0: missing
+    b(b"\x00"),               # C_RESFMT C*n, length 0: missing
+    b(b"\x00"),               # C_LLMFMT C*n, length 0: missing
+    b(b"\x00"),               # C_HLMFMT C*n, length 0: missing
+    w4(b"\x00\x00\x00\x00"),  # LO_SPEC R*4 = 0.0, flagged invalid
+    w4(b"\x00\x00\x00\x00"),  # HI_SPEC R*4 = 0.0, flagged invalid
+])
+
 # --- STDF V4, PTR 15/10 (truncated after TEST_TXT) --------------------------------------
 _pair("PTR-after-text", "PTR", {"TEST_NUM": 10001, "HEAD_NUM": 1, "SITE_NUM": 0,
                                 "TEST_FLG": 0x00, "PARM_FLG": 0x00, "RESULT": -0.25,

@@ -10,6 +10,9 @@ Two properties, each run with a short budget in the default suite and a long one
 - **Salvage** (the sans-IO decoder): a stream changed at byte N keeps every part whose
   PRR ends at or before N, row for row as the unchanged stream decodes it; it raises
   nothing but FormatError, and that only when the FAR itself (bytes 0-5) is damaged.
+- **Paths** (the decoder's engines): every mutated stream decodes to the same tables,
+  rows and counts on the compiled path, on the numpy path and in the reference stream
+  decoder (``reference.py``, record by record), or raises FormatError on all of them.
 
 Seeds are invented (tests/test_reliability.tiny_log) or cut from the invented sample logs;
 mutations are bit flips, byte inserts and deletes, truncation, REC_LEN corruption (the
@@ -41,8 +44,10 @@ from hypothesis import strategies as st
 from pipeline.errors import FormatError
 from pipeline.ingest import InputLimits, decode_to_staging
 from pipeline.stdf.decoder import Decoder, Limits
+from pipeline.stdf.reference import decode_stream
 from pipeline.store import Store
 from tests.conftest import SAMPLES, TIMING_CSV, walk
+from tests.paths import PATHS, assert_same, collect
 from tests.test_reliability import tiny_log
 
 SHORT_INGEST, SHORT_SALVAGE, LONG = 100, 100, 5000  # examples: default run, make fuzz
@@ -291,3 +296,41 @@ def test_fuzz_salvage_keeps_the_unchanged_prefix(case: Any) -> None:
 @given(case=salvage_case)
 def test_fuzz_salvage_keeps_the_unchanged_prefix_long(case: Any) -> None:
     check_salvage(*case)
+
+
+# -- paths: compiled, numpy and reference agree row for row -------------------------------
+def check_paths(seed: str, muts: list[tuple[str, int, int, str]], batch: int) -> None:
+    bad = STDF_SEEDS[seed]
+    for m in muts:
+        bad = mutate(bad, *m)
+    with time_bound(TIME_BOUND_S):
+        try:
+            ref = decode_stream(bad)
+        except FormatError:
+            ref = None
+        for path in PATHS:
+            dec = Decoder(Limits(batch_bytes=batch), path=path)
+            got: list[tuple[str, pa.Table]] = []
+            try:
+                for i in range(0, len(bad), 4096):
+                    got += dec.feed(bad[i:i + 4096])
+                got += dec.close()
+            except FormatError:
+                assert ref is None, path
+                continue
+            assert ref is not None, path
+            assert_same(dec, collect(got), ref)
+    OUTCOMES["paths:" + ("format_error" if ref is None else "decoded")] += 1
+
+
+@settings(_FUZZ, max_examples=SHORT_SALVAGE, derandomize=True)
+@given(case=salvage_case)
+def test_fuzz_paths_decode_alike(case: Any) -> None:
+    check_paths(*case)
+
+
+@pytest.mark.fuzz
+@settings(_FUZZ, max_examples=LONG)
+@given(case=salvage_case)
+def test_fuzz_paths_decode_alike_long(case: Any) -> None:
+    check_paths(*case)

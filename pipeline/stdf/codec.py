@@ -2,8 +2,9 @@
 
 The encoder writes every record in the catalogue (fixtures, sample logs, benchmarks).
 The reference decoder turns one record's payload into a dict; the ingest path uses the
-columnar decoder instead and falls back to this one only for the few records whose
-layout cannot be decoded column-wise (GDR's V*n fields, PLR's arrays of strings).
+batch engines instead and falls back to this one only for the few records whose layout
+cannot be decoded column-wise (GDR's V*n fields, PLR's arrays of strings). The stream
+reference (``reference.py``, for the tests) is built on it.
 
 Strings are decoded as Latin-1: STDF text is ASCII in practice, and Latin-1 maps every
 byte to one character, so no log can fail to decode and nothing is lost.

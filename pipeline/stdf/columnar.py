@@ -8,6 +8,9 @@ reads past REC_LEN). Missing fields come out as nulls.
 
 No Python object is made per record. The two layouts that cannot be read this way (GDR's
 V*n fields and PLR's arrays of strings) go to the reference decoder in ``codec.py``.
+When the compiled module is built, ``decode_columns`` runs its C twin instead (the same
+columns; the tests compare the two), and ``layout``/``arrow_column`` are the bridge the
+compiled batch engine (``native.py``) uses too.
 """
 
 from __future__ import annotations
@@ -18,7 +21,17 @@ import numpy as np
 import pyarrow as pa
 
 from .codec import decode_record
-from .records import FIXED_SIZE, NUMPY_CODE, RECORDS, VARIABLE, Field, Record
+from .records import (
+    DEFAULT_BITS,
+    DEFAULTED,
+    FIXED_SIZE,
+    NO_LIMIT_BITS,
+    NUMPY_CODE,
+    RECORDS,
+    VARIABLE,
+    Field,
+    Record,
+)
 
 _ARROW = {"U1": pa.uint8(), "U2": pa.uint16(), "U4": pa.uint32(), "I1": pa.int8(),
           "I2": pa.int16(), "I4": pa.int32(), "R4": pa.float32(), "R8": pa.float64(),
@@ -48,59 +61,71 @@ try:
 except ImportError:  # the optional extension did not build: the numpy path below is used
     _c = None
 
-_KIND = {"Cn": 3, "Bn": 4, "Dn": 5}
+# Field kinds of the compiled decoder (_stdf.h): fixed, C*1, C*n, B*n, D*n, array, N*1 array.
+_KIND = {"C1": 2, "Cn": 3, "Bn": 4, "Dn": 5}
+_F_DEFAULT, _F_EMPTY, _F_DICT, _NO_BIT = 1, 2, 4, 255
 
 
-def _layout(rec: Record) -> bytes:
-    """The C decoder's layout: (kind, size, count-field index) per field."""
+def layout(rec: Record, default_data: bool = False) -> bytes:
+    """The compiled decoder's layout of `rec`: 6 bytes per field (kind, size, index of the
+    count field, flags, OPT_FLAG bit that makes it invalid, OPT_FLAG bit that says there is
+    no such limit). ``default_data``: with the default-data rules of records.py."""
     names = [f.name for f in rec.fields]
+    defaulted = DEFAULTED.get(rec.name, ()) if default_data else ()
+    bits = DEFAULT_BITS.get(rec.name, {})
     out = bytearray()
     for f in rec.fields:
         ci = names.index(f.count) if f.count else 255
         if f.is_array:
-            out += bytes([7 if f.type == "N1" else 6, _size(f), ci])
+            head = [7 if f.type == "N1" else 6, _size(f), ci]
         elif f.type in _KIND:
-            out += bytes([_KIND[f.type], 0, 255])
+            head = [_KIND[f.type], 1 if f.type == "C1" else 0, 255]
         else:
-            out += bytes([1, _size(f), 255])
+            head = [1, _size(f), 255]
+        flags, inv, none = 0, _NO_BIT, _NO_BIT
+        if f.name in defaulted:
+            flags = _F_DEFAULT | (_F_EMPTY | _F_DICT if f.type == "Cn" else 0)
+            inv = bits.get(f.name, _NO_BIT)
+            none = NO_LIMIT_BITS.get(f.name, _NO_BIT)
+        out += bytes([*head, flags, inv, none])
     return bytes(out)
 
 
 _LAYOUTS: dict[tuple[int, int], bytes] = {}
 
 
+def arrow_column(f: Field, got: tuple, n: int, dictionary: pa.Array | None = None) -> pa.Array:
+    """One column of the compiled decoder (its tuple, _columns.c col_finish) as Arrow."""
+    tag, valid = got[0], got[1]
+    mask = None if valid is None else pa.py_buffer(valid)
+    if tag == 0:  # fixed-size values, native order
+        raw = got[2]
+        if f.type == "N1":
+            raw = np.frombuffer(raw, np.uint8) & 0x0F
+        return pa.Array.from_buffers(_ARROW[f.type], n, [mask, pa.py_buffer(raw)])
+    if tag == 1:  # text (UTF-8 already) or bytes
+        typ = pa.large_string() if f.type in ("Cn", "C1") else pa.large_binary()
+        return pa.Array.from_buffers(typ, n, [mask, pa.py_buffer(got[2]), pa.py_buffer(got[3])])
+    if tag == 2:  # dictionary indices
+        assert dictionary is not None
+        indices = pa.Array.from_buffers(pa.int32(), n, [mask, pa.py_buffer(got[2])])
+        return pa.DictionaryArray.from_arrays(indices, dictionary)
+    offsets = pa.py_buffer(got[2])
+    items = int(np.frombuffer(got[2], np.int64)[-1]) if n else 0
+    values = pa.Array.from_buffers(_ARROW[f.type], items, [None, pa.py_buffer(got[3])])
+    return pa.Array.from_buffers(pa.large_list(_ARROW[f.type]), n, [mask, offsets],
+                                 children=[values])
+
+
 def _decode_c(rec: Record, buf: np.ndarray, offs: np.ndarray, lens: np.ndarray,
               endian: str) -> dict[str, pa.Array]:
-    layout = _LAYOUTS.get(rec.key)
-    if layout is None:
-        layout = _LAYOUTS[rec.key] = _layout(rec)
+    lay = _LAYOUTS.get(rec.key)
+    if lay is None:
+        lay = _LAYOUTS[rec.key] = layout(rec)
     parts = _c.decode(buf, np.ascontiguousarray(offs, np.int64),  # type: ignore[union-attr]
-                      np.ascontiguousarray(lens, np.int64), layout, int(endian == ">"))
-    n = len(offs)
-    cols: dict[str, pa.Array] = {}
-    for f, got in zip(rec.fields, parts, strict=True):
-        valid = np.frombuffer(got[0], dtype=bool)
-        if f.is_array:
-            values = pa.Array.from_buffers(_ARROW[f.type], len(got[2]) // _size(f) if
-                                           f.type != "N1" else len(got[2]),
-                                           [None, pa.py_buffer(got[2])])
-            cols[f.name.lower()] = pa.Array.from_buffers(
-                pa.large_list(_ARROW[f.type]), n, [_mask(valid), pa.py_buffer(got[1])],
-                children=[values])
-        elif f.type in _KIND:
-            data = np.frombuffer(got[2], dtype=np.uint8)
-            offsets = np.frombuffer(got[1], dtype=np.int64)
-            cols[f.name.lower()] = _strings(data, offsets, valid, binary=f.type != "Cn")
-        elif f.type == "C1":
-            cols[f.name.lower()] = _strings(np.frombuffer(got[1], np.uint8),
-                                            np.arange(n + 1, dtype=np.int64), valid)
-        else:
-            raw = got[1]
-            if f.type == "N1":
-                raw = np.frombuffer(raw, np.uint8) & 0x0F
-            cols[f.name.lower()] = pa.Array.from_buffers(
-                _ARROW[f.type], n, [_mask(valid), pa.py_buffer(raw)])
-    return cols
+                      np.ascontiguousarray(lens, np.int64), lay, int(endian == ">"))
+    return {f.name.lower(): arrow_column(f, got, len(offs))
+            for f, got in zip(rec.fields, parts, strict=True)}
 
 
 def needs_reference(rec: Record) -> bool:

@@ -1,9 +1,11 @@
 """The STDF V4 record catalogue: every record as data, not branches.
 
 Each layout is copied from the *Standard Test Data Format (STDF) Specification, Version 4*,
-record by record (field names and order as the standard spells them). Both decoders (the
-columnar one in ``columnar.py`` and the per-record reference in ``codec.py``) and the
-writer are driven by this one table, so a layout fixed here is fixed everywhere.
+record by record (field names and order as the standard spells them). Every decoder (the
+compiled engine, which gets its layouts from ``columnar.layout``, the numpy one in
+``columnar.py``/``walk.py``, the per-record reference in ``codec.py`` and the stream
+reference in ``reference.py``) and the writer are driven by this one table, so a layout
+fixed here is fixed everywhere. So are the default-data rules at the end.
 
 Type codes are the standard's: ``C1 Cn B1 Bn Dn N1 U1 U2 U4 I1 I2 I4 R4 R8 Vn``. An
 array field (the standard's ``kxTYPE``) names the earlier field holding its length in
@@ -174,9 +176,12 @@ BY_NAME: dict[str, Record] = {r.name: r for r in RECORDS.values()}
 VN_TYPES = {0: "B0", 1: "U1", 2: "U2", 3: "U4", 4: "I1", 5: "I2", 6: "I4", 7: "R4", 8: "R8",
             10: "Cn", 11: "Bn", 12: "Dn", 13: "N1"}
 
-# Records whose fields the default-data rule covers (STDF V4, PTR and MPR notes): every
-# field after OPT_FLAG, taken from the first record of a test number when a later one
-# omits it or flags it invalid.
+# Records whose fields the default-data rule covers (STDF V4, PTR 15/10 and MPR 15/15
+# "Default Data"): every field after OPT_FLAG, taken from the first record of a test
+# number when a later one does not give its own value. A value is not given when the
+# field is cut off by REC_LEN, flagged invalid in OPT_FLAG (DEFAULT_BITS), or written
+# with the field's own missing value: a C*n of length 0 (UNITS, UNITS_IN and the format
+# strings; STDF V4 "Optional fields and missing/invalid data").
 DEFAULTED = {
     "PTR": ("RES_SCAL", "LLM_SCAL", "HLM_SCAL", "LO_LIMIT", "HI_LIMIT", "UNITS", "C_RESFMT",
             "C_LLMFMT", "C_HLMFMT", "LO_SPEC", "HI_SPEC"),
@@ -184,3 +189,16 @@ DEFAULTED = {
             "INCR_IN", "RTN_INDX", "UNITS", "UNITS_IN", "C_RESFMT", "C_LLMFMT", "C_HLMFMT",
             "LO_SPEC", "HI_SPEC"),
 }
+
+# OPT_FLAG bits that make this record's value of a field invalid, so the default applies
+# (STDF V4, PTR 15/10: bit 0 RES_SCAL, bit 2 LO_SPEC, bit 3 HI_SPEC, bit 4 LO_LIMIT,
+# bit 5 HI_LIMIT; MPR 15/15 the same, and bit 1 START_IN and INCR_IN).
+DEFAULT_BITS = {
+    "PTR": {"RES_SCAL": 0, "LO_SPEC": 2, "HI_SPEC": 3, "LO_LIMIT": 4, "HI_LIMIT": 5},
+    "MPR": {"RES_SCAL": 0, "START_IN": 1, "INCR_IN": 1, "LO_SPEC": 2, "HI_SPEC": 3,
+            "LO_LIMIT": 4, "HI_LIMIT": 5},
+}
+# OPT_FLAG bits that say the test has no such limit at all: no value, default or not
+# (bit 6 no low limit, bit 7 no high limit), read from the record's own OPT_FLAG, else
+# from the first record's.
+NO_LIMIT_BITS = {"LO_LIMIT": 6, "HI_LIMIT": 7}
