@@ -5,7 +5,7 @@ VENV   := .venv
 PY     := $(VENV)/bin/python
 STAMP  := $(VENV)/.installed
 
-.PHONY: install demo test bench bench-store fuzz lint golden clean
+.PHONY: install demo test bench bench-store bench-cluster fuzz lint golden clean
 
 $(STAMP): pyproject.toml
 	@test -x $(PY) || $(PYTHON) -m venv $(VENV)
@@ -26,6 +26,9 @@ bench: $(STAMP)
 
 bench-store: $(STAMP)
 	$(PY) bench/bench_store.py
+
+bench-cluster: $(STAMP)
+	$(PY) bench/bench_cluster.py
 
 fuzz: $(STAMP)
 	$(PY) -m pytest -q -m fuzz
