@@ -1,7 +1,7 @@
 """Cluster benchmark: 64 generated lots through a loopback Dask cluster, in one run.
 
-``make bench-cluster`` runs it (~6 minutes on a loaded machine). A measurement, not a test: it prints what it
-measured and exits 0 either way (1 only when the stores differ, which is a bug).
+``make bench-cluster`` runs it (~6 minutes on a loaded machine). A measurement, not a
+test: it prints what it measured and exits 0 (1 only when the stores differ: a bug).
 
 1. The lots are ``bench_store.lot_logs(64)`` (copies of one generated sample-device lot,
    each with its own lot id, ~3.5 MB each).
