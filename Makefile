@@ -5,7 +5,7 @@ VENV   := .venv
 PY     := $(VENV)/bin/python
 STAMP  := $(VENV)/.installed
 
-.PHONY: install demo test bench bench-store fuzz lint golden clean
+.PHONY: install demo test bench bench-store bench-cluster fuzz lint golden clean
 
 # The compiled decoder (pipeline/stdf/_*.c) is rebuilt whenever its sources change; when
 # it cannot be built (no C compiler), the install goes on and says so in one line.
@@ -32,6 +32,9 @@ bench: $(STAMP)
 
 bench-store: $(STAMP)
 	$(PY) bench/bench_store.py
+
+bench-cluster: $(STAMP)
+	$(PY) bench/bench_cluster.py
 
 fuzz: $(STAMP)
 	$(PY) -m pytest -q -m fuzz

@@ -55,7 +55,7 @@ def base_log() -> bytes:
     blocks = g.build_blocks()
     rng = np.random.default_rng([g.SEED, lot.key])
     tds, index = g.plan_lot(lot, blocks, rng)
-    recs, _, _ = g.build_stdf(lot, blocks, tds, index, rng)
+    recs = g.build_stdf(lot, blocks, tds, index, rng)[0]  # the records; the rest varies
     data = g.encode_stream(recs, "<")
     OUT.mkdir(parents=True, exist_ok=True)
     path.write_bytes(data)

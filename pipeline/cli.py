@@ -49,6 +49,27 @@ def open_store(path: str) -> Any:
     return store
 
 
+def cluster_opts(p: argparse.ArgumentParser) -> None:
+    """--cluster ADDRESS and --cluster-timeout S (ingest, nightly)."""
+    from .cluster import DEFAULT_TIMEOUT_S, ENV
+
+    p.add_argument("--cluster", metavar="ADDRESS", default=None,
+                   help=f"decode and derive on this Dask scheduler's workers, e.g. "
+                        f"tcp://10.1.2.3:8786 (default: ${ENV} when set; else the local "
+                        f"process pool); the workers must reach the store at the same path")
+    p.add_argument("--cluster-timeout", type=float, default=DEFAULT_TIMEOUT_S, metavar="S",
+                   help=f"give up on a scheduler that does not answer within S seconds "
+                        f"(exit 1, nothing written; default {DEFAULT_TIMEOUT_S:g})")
+
+
+def cluster_of(args: argparse.Namespace) -> str | None:
+    """The scheduler address to use, checked (UsageError when malformed), or None."""
+    from .cluster import address_from, check_timeout
+
+    check_timeout(args.cluster_timeout)
+    return address_from(args.cluster)
+
+
 def _format_opt(p: argparse.ArgumentParser) -> None:
     p.add_argument("--format", choices=("table", "csv", "json"), default="table",
                    help="output format (default: table)")
@@ -61,17 +82,25 @@ def _ingest_options(p: argparse.ArgumentParser) -> None:
                         "are searched recursively; the format is decided by content")
     store_opt(p, creates=True)
     p.add_argument("--workers", type=int, default=None, metavar="N",
-                   help="decode N files at once in worker processes (default: automatic)")
+                   help="decode N files at once in worker processes (default: automatic; "
+                        "not used with --cluster)")
+    cluster_opts(p)
     p.add_argument("--json", action="store_true", help="print the outcome as JSON")
 
 
 def _ingest(args: argparse.Namespace) -> int:
-    from .ingest import tty_progress
+    from .cluster import connected
+    from .ingest import InputLimits, ingest, tty_progress
     from .store import Store
 
     if args.workers is not None and args.workers < 1:
         raise UsageError("--workers must be at least 1")
-    report = Store(args.store).ingest(args.paths, workers=args.workers, progress=tty_progress)
+    address = cluster_of(args)
+    store = Store(args.store)
+    limits = InputLimits.from_env()  # a bad setting is exit 2 before connecting
+    with connected(address, args.cluster_timeout) as cluster:  # before the store is touched
+        report = ingest(store, args.paths, workers=args.workers, progress=tty_progress,
+                        limits=limits, cluster=cluster)
     for line in report.problems:
         print(line, file=sys.stderr)
     if args.json:

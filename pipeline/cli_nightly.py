@@ -5,7 +5,7 @@ from __future__ import annotations
 import argparse
 import sys
 
-from .cli import register, store_opt
+from .cli import cluster_of, cluster_opts, register, store_opt
 from .errors import UsageError
 
 
@@ -24,7 +24,9 @@ def _nightly_options(p: argparse.ArgumentParser) -> None:
                    help="wait up to S seconds for another writer to finish (default 0: "
                         "exit 1 at once, so runs never pile up)")
     p.add_argument("--workers", type=int, default=None, metavar="N",
-                   help="decode N files at once in worker processes (default: automatic)")
+                   help="decode N files at once in worker processes (default: automatic; "
+                        "not used with --cluster)")
+    cluster_opts(p)
 
 
 def _nightly(args: argparse.Namespace) -> int:
@@ -34,8 +36,10 @@ def _nightly(args: argparse.Namespace) -> int:
         raise UsageError("--lock-timeout must be 0 or more seconds")
     if args.workers is not None and args.workers < 1:
         raise UsageError("--workers must be at least 1")
+    address = cluster_of(args)
     status = run_nightly(args.inbox, args.store, args.out, blocks=args.blocks,
-                         lock_timeout=args.lock_timeout, workers=args.workers)
+                         lock_timeout=args.lock_timeout, workers=args.workers,
+                         cluster=address, cluster_timeout=args.cluster_timeout)
     for line in [*status.get("problems", []), *status.get("errors", [])]:
         print(line, file=sys.stderr)
     for line in status.get("warnings", []):

@@ -30,7 +30,7 @@ from collections.abc import Callable, Iterable, Iterator
 from concurrent.futures import ProcessPoolExecutor
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import IO, Any
+from typing import IO, TYPE_CHECKING, Any
 
 import zstandard
 
@@ -43,6 +43,9 @@ from .store import Store
 from .store.commit import Incoming, Runner, Share
 from .store.layout import STAGING
 from .store.staging import UNKNOWN_LOT, Staged
+
+if TYPE_CHECKING:
+    from .cluster import Cluster
 
 READ_BYTES = 8 << 20
 MAGIC = [(b"\x1f\x8b", "gzip"), (b"BZh", "bzip2"), (b"\xfd7zXZ\x00", "xz"),
@@ -245,10 +248,12 @@ class Decoded:
 
 def ingest(store: Store, paths: Iterable[str | os.PathLike[str]], workers: int | None = None,
            progress: Callable[[int, int, str], None] | None = None,
-           limits: InputLimits | None = None, runner: Runner | None = None) -> IngestReport:
+           limits: InputLimits | None = None, runner: Runner | None = None,
+           cluster: Cluster | None = None) -> IngestReport:
     """Store every new log under ``paths``; see IngestReport for what came of each.
     ``limits``: default InputLimits.from_env(). ``runner``: where the per-lot derivation
-    runs (default: this process)."""
+    runs (default: this process; with ``cluster``, its workers). ``cluster``: decode and
+    derive on a Dask cluster (pipeline.cluster_tasks); ``workers`` is then not used."""
     from .derivation import local_runner
 
     limits = limits or InputLimits.from_env()
@@ -257,12 +262,30 @@ def ingest(store: Store, paths: Iterable[str | os.PathLike[str]], workers: int |
     with store.writer():
         todo = _new_files(store, files, report)
         rules = store.rules_path(store.snapshot().rules_sha)
+        if cluster is not None:
+            _ingest_on(cluster, store, todo, limits, rules, report, runner, progress)
+            return report
         lots = runner or local_runner()
         for i, decoded in enumerate(_decode_all(store, todo, workers, limits, rules)):
             _commit(store, decoded, report, lots)
             if progress:
                 progress(i + 1, len(todo), decoded.entry["path"])
     return report
+
+
+def _ingest_on(cluster: Cluster, store: Store, todo: list[tuple[Path, str | None]],
+               limits: InputLimits, rules: Path | None, report: IngestReport,
+               runner: Runner | None, progress: Callable[[int, int, str], None] | None) -> None:
+    """Decoded on the cluster; the logs that are ready together committed at once."""
+    from .cluster_tasks import cluster_runner, decoded_batches
+
+    lots, done = runner or cluster_runner(cluster), 0
+    for batch in decoded_batches(cluster, store.path, todo, limits, rules):
+        _commit_batch(store, batch, report, lots)
+        for decoded in batch:
+            done += 1
+            if progress:
+                progress(done, len(todo), decoded.entry["path"])
 
 
 def _new_files(store: Store, files: list[Path],
@@ -337,32 +360,54 @@ def _default_workers(todo: list[tuple[Path, str | None]]) -> int:
 
 
 def _commit(store: Store, decoded: Decoded, report: IngestReport, runner: Runner) -> None:
+    _commit_batch(store, [decoded], report, runner)
+
+
+def _commit_batch(store: Store, batch: list[Decoded], report: IngestReport,
+                  runner: Runner) -> None:
+    """Publish the logs of ``batch`` in one commit (atomic per lot, as for one log) and
+    record each one's outcome in the report, in the batch's order."""
+    ready: list[tuple[Decoded, Incoming]] = []
+    stored: dict[str, dict[str, Any]] = {}  # sha256 -> path and file id, in this batch
+    for decoded in batch:
+        entry = decoded.entry
+        known = store.known(entry["sha256"]) or stored.get(entry["sha256"])
+        if known is not None:  # hashed while decoding, and the same content is stored already
+            if decoded.root:
+                shutil.rmtree(decoded.root, ignore_errors=True)
+            report.skipped.append({"path": entry["path"], "reason":
+                                   f"same content as {known['path']} ({known['file_id']})"})
+        elif entry["status"] == "failed":  # not registered: the next run tries it again
+            report.failed.append({"path": entry["path"], "reason": entry["error"]})
+        else:
+            stored[entry["sha256"]] = {"path": entry["path"], "file_id": entry["file_id"]}
+            ready.append((decoded, _incoming(decoded)))
+    if not ready:
+        return
+    store.commit([inc for _, inc in ready], runner)
+    for decoded, _ in ready:
+        entry = decoded.entry
+        if entry["status"] == "rejected":
+            report.rejected.append({"path": entry["path"], "reason": entry["error"]})
+            continue
+        item = {k: entry[k] for k in ("path", "file_id", "format", "records", "parts",
+                                      "status")}
+        if entry["status"] == "partial":
+            item["error"] = entry["error"]
+        report.ingested.append(item)
+
+
+def _incoming(decoded: Decoded) -> Incoming:
     entry, root = decoded.entry, decoded.root
-    known = store.known(entry["sha256"])
-    if known is not None:  # hashed while decoding, and the same content is stored already
-        if root:
-            shutil.rmtree(root, ignore_errors=True)
-        report.skipped.append({"path": entry["path"], "reason":
-                               f"same content as {known['path']} ({known['file_id']})"})
-        return
-    if entry["status"] == "failed":  # not registered: the next run tries it again
-        report.failed.append({"path": entry["path"], "reason": entry["error"]})
-        return
     if entry["status"] == "rejected":
-        store.commit([Incoming(_registry_fields(entry))], runner)
-        report.rejected.append({"path": entry["path"], "reason": entry["error"]})
-        return
+        return Incoming(_registry_fields(entry))
     assert root is not None
     base = Path(root)
     shares = [Share(lot, {t: base / d for t, d in tables.items()},
                     {m: base / f for m, f in decoded.derived[lot].items()}
                     if lot in decoded.derived else None)
               for lot, tables in sorted(decoded.shares.items())]
-    store.commit([Incoming(_registry_fields(entry), shares, base)], runner)
-    item = {k: entry[k] for k in ("path", "file_id", "format", "records", "parts", "status")}
-    if entry["status"] == "partial":
-        item["error"] = entry["error"]
-    report.ingested.append(item)
+    return Incoming(_registry_fields(entry), shares, base)
 
 
 def _registry_fields(entry: dict[str, Any]) -> dict[str, Any]:
@@ -381,13 +426,15 @@ def _stage(store_path: str, name: str) -> Staged:
 
 def decode_to_staging(store_path: str, path: str, digest: str | None,
                       limits: InputLimits | None = None,
-                      rules: str | None = None) -> Decoded:
+                      rules: str | None = None, shown: str | None = None) -> Decoded:
     """Decode one log into the store's staging area and derive its per-file tables there
     (runs in a worker process too). ``digest`` None: hash the file while decoding it.
-    ``rules``: the store's block-map rules file, if any."""
+    ``rules``: the store's block-map rules file, if any. ``shown``: the log's name in the
+    entry and in messages (default ``path``; a cluster worker opens it by absolute path)."""
     p = Path(path)
+    name = shown if shown is not None else path
     entry: dict[str, Any] = {
-        "path": path, "size_bytes": p.stat().st_size,
+        "path": name, "size_bytes": p.stat().st_size,
         "ingested_at": _dt.datetime.now().replace(microsecond=0),
         "tandem_version": __version__, "dropped_results": 0,
     }
@@ -395,7 +442,8 @@ def decode_to_staging(store_path: str, path: str, digest: str | None,
     hasher = HashingReader(p) if digest is None else None
     try:
         try:
-            entry.update(_decode_into(p, staged, hasher, limits or InputLimits.from_env()))
+            entry.update(_decode_into(p, staged, hasher, limits or InputLimits.from_env(),
+                                      name))
             root: str | None = str(staged.root)
         except ReconciliationError as e:
             staged.discard()
@@ -404,7 +452,7 @@ def decode_to_staging(store_path: str, path: str, digest: str | None,
             root = None
         except TandemError as e:
             staged.discard()
-            reason = _one_line(e).removeprefix(f"{path}: ")  # the report names the file
+            reason = _one_line(e).removeprefix(f"{name}: ")  # the report names the file
             entry.update(status="rejected", error=reason, records=0, parts=0)
             entry.setdefault("format", None)
             root = None
@@ -449,7 +497,7 @@ def _derive_staged(store_root: Path, staged: Staged, entry: dict[str, Any],
 
 
 def _decode_into(p: Path, staged: Staged, raw: IO[bytes] | None = None,
-                 limits: InputLimits | None = None) -> dict[str, Any]:
+                 limits: InputLimits | None = None, name: str | None = None) -> dict[str, Any]:
     opened, compression = open_input(p, raw)
     stream: Any = opened
     if compression != "none":  # a bomb is cut at the limit, never fully expanded
@@ -475,7 +523,7 @@ def _decode_into(p: Path, staged: Staged, raw: IO[bytes] | None = None,
             if err is not None:
                 raise InputError(f"cannot decompress ({compression}): damaged after "
                                  f"{len(head) + len(rest)} bytes: {err}")
-            info = _decode_csv(head + rest, str(p), staged)
+            info = _decode_csv(head + rest, name or str(p), staged)
         else:
             raise InputError("not a datalog: neither STDF V4 (no FAR record at the start) "
                              "nor a timing CSV (no lot_id,touchdown,site,part_id,block,"

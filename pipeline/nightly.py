@@ -16,6 +16,11 @@ Safe to run from cron:
 - **Idempotent.** Files already stored are skipped at the cost of hashing them; a rerun
   with nothing new writes no report and exits 0.
 
+With ``cluster`` (a Dask scheduler address) the decoding, the derivation and the
+per-lot reports run on its workers (pipeline.cluster_tasks); this process holds the lock
+and commits. The scheduler is reached before anything is written: when it does not
+answer, the run exits 1 and leaves even ``status.json`` as it was.
+
 Exit codes (DESIGN.md): 0 ok; 3 some inputs rejected or only partly stored (the rest
 processed); 1 internal error (a file failed reconciliation, a report could not be
 written, or the lock is held); 2 usage error (no such inbox, bad block map).
@@ -33,6 +38,7 @@ from collections.abc import Callable, Sequence
 from pathlib import Path
 from typing import Any
 
+from .cluster import DEFAULT_TIMEOUT_S, Cluster, connected
 from .errors import InputError, TandemError, UsageError
 from .ingest import IngestReport, InputLimits, ingest
 from .store import Store
@@ -46,30 +52,36 @@ def run_nightly(inbox: str | os.PathLike[str], store_dir: str | os.PathLike[str]
                 out: str | os.PathLike[str], blocks: str | None = None,
                 lock_timeout: float = 0.0, workers: int | None = None,
                 limits: InputLimits | None = None,
-                reporter: Reporter | None = None) -> dict[str, Any]:
+                reporter: Reporter | None = None, cluster: str | None = None,
+                cluster_timeout: float = DEFAULT_TIMEOUT_S) -> dict[str, Any]:
     """Run the nightly job once; returns the final status (also in ``out/status.json``),
     whose ``exit_code`` is the process's. ``reporter(store, folder, lot, blocks)`` writes
-    one lot's report (default: ``pipeline.report.build_report``)."""
+    one lot's report (default: ``pipeline.report.build_report``; with a cluster it runs
+    on a worker, so it must be picklable). ``cluster``: a Dask scheduler's address."""
     inbox_p, out_p = Path(inbox), Path(out)
     if not inbox_p.is_dir():
         raise UsageError(f"{inbox_p}: --inbox must be an existing folder")
     bm = _load_blocks(blocks)
     limits = limits or InputLimits.from_env()  # a bad TANDEM_MAX_DECOMPRESSED: exit 2 now
-    try:
-        out_p.mkdir(parents=True, exist_ok=True)
-    except OSError as e:
-        raise UsageError(f"{out_p}: cannot create the --out folder: {e.strerror or e}") from None
-    if out_p.is_file() or not out_p.is_dir():
+    if out_p.exists() and not out_p.is_dir():
         raise UsageError(f"{out_p}: --out must be a folder")
     store = Store(store_dir, lock_timeout=lock_timeout)
-    with store.writer():  # StoreError (exit 1) when another run holds it: nothing touched
-        return _run_locked(store, inbox_p, out_p, blocks, bm, workers, limits,
-                           reporter or _build_report)
+    with connected(cluster, cluster_timeout) as remote:  # unreachable: exit 1, no trace
+        try:
+            out_p.mkdir(parents=True, exist_ok=True)
+        except OSError as e:
+            raise UsageError(f"{out_p}: cannot create the --out folder: "
+                             f"{e.strerror or e}") from None
+        if out_p.is_file() or not out_p.is_dir():
+            raise UsageError(f"{out_p}: --out must be a folder")
+        with store.writer():  # StoreError (exit 1) when another run holds it: nothing touched
+            return _run_locked(store, inbox_p, out_p, blocks, bm, workers, limits,
+                               reporter or _build_report, remote)
 
 
 def _run_locked(store: Store, inbox: Path, out: Path, blocks: str | None, bm: Any,
                 workers: int | None, limits: InputLimits | None,
-                reporter: Reporter) -> dict[str, Any]:
+                reporter: Reporter, cluster: Cluster | None = None) -> dict[str, Any]:
     previous = read_status(out)
     started = _now()
     status: dict[str, Any] = {
@@ -83,7 +95,8 @@ def _run_locked(store: Store, inbox: Path, out: Path, blocks: str | None, bm: An
     status["since"] = since.isoformat()
     write_status(out, status)
     try:
-        _work(store, inbox, out, blocks, bm, workers, limits, reporter, status, since)
+        _work(store, inbox, out, blocks, bm, workers, limits, reporter, status, since,
+              cluster)
     except TandemError as e:  # e.g. the store cannot be written
         status.update(error=" ".join(str(e).split()), exit_code=e.exit_code)
         _finish(out, status, "failed")
@@ -97,14 +110,19 @@ def _run_locked(store: Store, inbox: Path, out: Path, blocks: str | None, bm: An
 
 def _work(store: Store, inbox: Path, out: Path, blocks: str | None, bm: Any,
           workers: int | None, limits: InputLimits | None, reporter: Reporter,
-          status: dict[str, Any], since: _dt.datetime) -> None:
+          status: dict[str, Any], since: _dt.datetime, cluster: Cluster | None) -> None:
     from . import timing
     from .derivation import set_block_rules
 
+    runner = None
+    if cluster is not None:
+        from .cluster_tasks import cluster_runner
+
+        runner = cluster_runner(cluster)
     # Rules first: the new logs are then derived with them, once.
-    rederived = set_block_rules(store, bm) if bm is not None else []
+    rederived = set_block_rules(store, bm, runner) if bm is not None else []
     report = ingest(store, inbox_files(inbox, [store.path, out]), workers=workers,
-                    limits=limits)
+                    limits=limits, runner=runner, cluster=cluster)
     status.update(_ingest_summary(report))
     lots = sorted(set(lots_since(store, since, [r["file_id"] for r in report.ingested]))
                   | set(rederived))
@@ -112,28 +130,45 @@ def _work(store: Store, inbox: Path, out: Path, blocks: str | None, bm: Any,
     status["rederived_lots"] = rederived
     warnings = [f"estimate: {w}" for lot in lots for w in timing.warnings(store, lot)]
     status["drift"] = drift_flags(store, lots)
-    reports, errors = _write_reports(store, out, lots, blocks, reporter, warnings)
+    reports, errors = _write_reports(store, out, lots, blocks, reporter, warnings, cluster)
     status.update(reports=reports, warnings=warnings, errors=errors)
     code = report.exit_code
     status["exit_code"] = 1 if errors or code == 1 else code
 
 
 def _write_reports(store: Store, out: Path, lots: list[str], blocks: str | None,
-                   reporter: Reporter,
-                   warnings: list[str]) -> tuple[list[dict[str, str]], list[str]]:
-    """One report per lot, in out/reports/<safe name>/; a lot with nothing to report is
-    a warning, a report that fails is an error (exit 1) and the other lots go on."""
+                   reporter: Reporter, warnings: list[str], cluster: Cluster | None = None
+                   ) -> tuple[list[dict[str, str]], list[str]]:
+    """One report per lot, in out/reports/<safe name>/ (with a cluster, each a task on
+    its workers); a lot with nothing to report is a warning, a report that fails is an
+    error (exit 1) and the other lots go on."""
+    folders = {lot: out / REPORTS_DIR / safe_name(lot) for lot in lots}
+    if cluster is not None:
+        from .cluster_tasks import run_reports
+
+        outcomes = run_reports(cluster, store.path, folders, blocks, reporter)
+    else:
+        outcomes = {lot: _try_report(reporter, store, folders[lot], lot, blocks)
+                    for lot in lots}
     reports, errors = [], []
     for lot in lots:
-        folder = out / REPORTS_DIR / safe_name(lot)
-        try:
-            reporter(store, folder, lot, blocks)
-            reports.append({"lot_id": lot, "folder": str(folder)})
-        except InputError as e:  # the lot has nothing to report (no block times)
+        e = outcomes[lot]
+        if e is None:
+            reports.append({"lot_id": lot, "folder": str(folders[lot])})
+        elif isinstance(e, InputError):  # the lot has nothing to report (no block times)
             warnings.append(f"report for lot {lot!r} not written: {_line(e)}")
-        except Exception as e:  # noqa: BLE001 - a bug in one report must not lose the rest
+        else:
             errors.append(f"report for lot {lot!r} failed: {type(e).__name__}: {_line(e)}")
     return reports, errors
+
+
+def _try_report(reporter: Reporter, store: Store, folder: Path, lot: str,
+                blocks: str | None) -> BaseException | None:
+    try:
+        reporter(store, folder, lot, blocks)
+    except Exception as e:  # noqa: BLE001 - a bug in one report must not lose the rest
+        return e
+    return None
 
 
 def _since(previous: dict[str, Any] | None,
