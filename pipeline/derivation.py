@@ -19,7 +19,7 @@ from .store.derive import PyModel, run_file_task, run_lot_task
 
 
 def python_models() -> Sequence[PyModel]:
-    from .timing import PY_MODELS  # numpy and the estimator load only to derive
+    from .lot_models import PY_MODELS  # numpy and the estimator load only to derive
 
     return PY_MODELS
 

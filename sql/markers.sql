@@ -10,6 +10,18 @@ dtr as (
     select * from raw_dtr
 ),
 
+canonical as (
+    -- The order the README writes the tokens in, parsed with one expression; any other
+    -- order (or a head= token) takes the token-by-token path below. Same answer, and a
+    -- production log holds hundreds of thousands of markers.
+    select
+        lot, file_id, rec_index, touchdown, text_dat,
+        regexp_extract(text_dat, '^TT block=(\S+) site=(\d+) start_us=(-?\d+) end_us=(-?\d+)$',
+                       ['b', 's', 'st', 'e']) as m
+    from dtr
+    where regexp_matches(text_dat, '^\s*TT(\s|$)')
+),
+
 tt as (
     select
         lot,
@@ -17,13 +29,17 @@ tt as (
         rec_index,
         touchdown,
         text_dat,
-        regexp_extract(text_dat, '(?:^|\s)block=(\S+)', 1) as block_tok,
-        regexp_extract(text_dat, '(?:^|\s)site=(\d+)', 1) as site_tok,
-        regexp_extract(text_dat, '(?:^|\s)head=(\d+)', 1) as head_tok,
-        regexp_extract(text_dat, '(?:^|\s)start_us=(-?\d+)', 1) as start_tok,
-        regexp_extract(text_dat, '(?:^|\s)end_us=(-?\d+)', 1) as end_tok
-    from dtr
-    where regexp_matches(text_dat, '^\s*TT(\s|$)')
+        case when m.b <> '' then m.b
+             else regexp_extract(text_dat, '(?:^|\s)block=(\S+)', 1) end as block_tok,
+        case when m.b <> '' then m.s
+             else regexp_extract(text_dat, '(?:^|\s)site=(\d+)', 1) end as site_tok,
+        case when m.b <> '' then ''
+             else regexp_extract(text_dat, '(?:^|\s)head=(\d+)', 1) end as head_tok,
+        case when m.b <> '' then m.st
+             else regexp_extract(text_dat, '(?:^|\s)start_us=(-?\d+)', 1) end as start_tok,
+        case when m.b <> '' then m.e
+             else regexp_extract(text_dat, '(?:^|\s)end_us=(-?\d+)', 1) end as end_tok
+    from canonical
 ),
 
 final as (

@@ -70,13 +70,26 @@ def _models() -> dict[str, SqlModel]:
     return load_models()
 
 
-def _connect() -> duckdb.DuckDBPyConnection:
+# Per-file models that add up doubles (whose sum depends on the order, and so on DuckDB's
+# threads): made on one thread, like every per-lot model. The others (counts, integer
+# sums, min/max) get every core: the per-file models over all of a log's results are the
+# most expensive part of an ingest after decoding.
+SUMS_OF_DOUBLES = frozenset({"csv_times", "part_spans"})
+# Per-file models no per-lot model adds doubles over (and the largest: one row per marker
+# or per part and block), written in the order they come; the rest in a fixed order.
+ONLY_COUNTED = frozenset({"markers", "part_blocks"})
+
+
+def _connect(one_thread: bool) -> duckdb.DuckDBPyConnection:
     import duckdb
 
     con = duckdb.connect(":memory:")
-    # One thread: DuckDB's parallel sums add in a varying order, and means that sit on a
-    # rounding boundary would then differ from one derivation of the same lot to the next.
-    con.execute("set threads = 1")
+    if one_thread:
+        # DuckDB's parallel sums of doubles add in a varying order, and means that sit on
+        # a rounding boundary would then differ from one derivation of a lot to the next.
+        # The per-lot models are small; the per-file ones (counts, integer sums, windows)
+        # are exact in any order and get every core.
+        con.execute("set threads = 1")
     con.execute(f"set memory_limit = '{os.environ.get('TANDEM_DERIVE_MEMORY', '2GB')}'")
     return con
 
@@ -120,9 +133,13 @@ def _closure(models: Mapping[str, SqlModel], wanted: set[str]) -> set[str]:
     return out
 
 
-def _copy(con: duckdb.DuckDBPyConnection, name: str, path: Path) -> Path:
+def _copy(con: duckdb.DuckDBPyConnection, name: str, path: Path, ordered: bool = False) -> Path:
+    """Write one model's rows. ``ordered``: in a fixed order (a per-file model made on
+    several threads comes out in any order, and a per-lot mean over it would add its
+    doubles in that order)."""
     path.parent.mkdir(parents=True, exist_ok=True)
-    con.execute(f"copy (select * from {name}) to {sql_str(str(path))} "
+    order = " order by all" if ordered else ""
+    con.execute(f"copy (select * from {name}{order}) to {sql_str(str(path))} "
                 f"(format parquet, compression zstd)")
     return path
 
@@ -155,15 +172,20 @@ def derive_file(root: Path, file_id: str, tables: Mapping[str, str | Path], out:
     folder of its Parquet (Hive layout, ``lot=``/``file_id=`` in the path). Writes
     ``out/<model>/<file_id>.parquet``; returns model -> that file."""
     ms = _models()
-    con = _connect()
+    con = _connect(one_thread=False)
     try:
         _raw_views(con, root, {t: [Path(d) / "part-0.parquet"] for t, d in tables.items()})
         _rules(con, rules)
         order = dependency_order({n: ms[n].deps for n in
                                   _closure(ms, {n for n in ms if ms[n].kind == "file"})})
         for n in order:
+            if n in SUMS_OF_DOUBLES:  # small tables: one thread costs nothing there
+                con.execute("set threads = 1")
             _define(con, ms[n], ms[n].kind == "file")
-        return {n: _copy(con, n, out / n / f"{file_id}.parquet")
+            if n in SUMS_OF_DOUBLES:
+                con.execute("reset threads")
+        return {n: _copy(con, n, out / n / f"{file_id}.parquet",
+                         ordered=n not in ONLY_COUNTED)
                 for n in order if ms[n].kind == "file"}
     finally:
         con.close()
@@ -180,7 +202,7 @@ def derive_lot(root: Path, lot: str, per_file: Mapping[str, Sequence[str | Path]
     ms = _models()
     py = {name: m for m in python_models for name in m.outputs}
     done: dict[str, pa.Table] = {}
-    con = _connect()
+    con = _connect(one_thread=True)
     try:
         _raw_views(con, root, raw)
         _rules(con, rules)
