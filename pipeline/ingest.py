@@ -30,7 +30,7 @@ from collections.abc import Callable, Iterable, Iterator
 from concurrent.futures import ProcessPoolExecutor
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import IO, TYPE_CHECKING, Any
+from typing import IO, TYPE_CHECKING, Any, cast
 
 import zstandard
 
@@ -101,7 +101,7 @@ class _Capped:
     """A decompressed stream that ends at ``cap`` bytes: one probe byte past the cap tells
     a log that is exactly that long from one that would go on."""
 
-    def __init__(self, stream: IO[bytes], cap: int, note: str):
+    def __init__(self, stream: Stream, cap: int, note: str):
         self._s, self.left, self.cap, self._note = stream, cap, cap, note
 
     def read1(self, n: int = -1) -> bytes:
@@ -207,7 +207,11 @@ class HashingReader(io.RawIOBase):
         self._f.close()
 
 
-def open_input(path: Path, raw: IO[bytes] | None = None) -> tuple[IO[bytes], str]:
+# What open_input returns: a decompressing reader, or the file's own buffered bytes.
+Stream = io.BufferedIOBase | zstandard.ZstdDecompressionReader
+
+
+def open_input(path: Path, raw: io.RawIOBase | None = None) -> tuple[Stream, str]:
     """The decompressed byte stream, whatever the file's name (magic bytes decide).
     ``raw``: read the file's bytes through this object (a HashingReader, which the
     caller releases) instead of opening the file here."""
@@ -224,16 +228,17 @@ def open_input(path: Path, raw: IO[bytes] | None = None) -> tuple[IO[bytes], str
         if kind == "zstd":
             src = open(path, "rb")  # noqa: SIM115 - closed with the reader
             return zstandard.ZstdDecompressor().stream_reader(src, closefd=True), kind
-        return open(path, "rb"), kind
+        return io.BufferedReader(io.FileIO(path, "rb"), READ_BYTES), kind
+    fed = cast(IO[bytes], raw)  # a RawIOBase: what the decompressors read from
     if kind == "gzip":
-        return gzip.GzipFile(fileobj=raw, mode="rb"), kind
+        return gzip.GzipFile(fileobj=fed, mode="rb"), kind
     if kind == "bzip2":
-        return bz2.BZ2File(raw, "rb"), kind
+        return bz2.BZ2File(fed, "rb"), kind
     if kind == "xz":
-        return lzma.LZMAFile(raw, "rb"), kind
+        return lzma.LZMAFile(fed, "rb"), kind
     if kind == "zstd":
-        return zstandard.ZstdDecompressor().stream_reader(raw, closefd=False), kind
-    return io.BufferedReader(raw, READ_BYTES), kind  # type: ignore[arg-type]
+        return zstandard.ZstdDecompressor().stream_reader(fed, closefd=False), kind
+    return io.BufferedReader(raw, READ_BYTES), kind
 
 
 @dataclass
@@ -496,7 +501,7 @@ def _derive_staged(store_root: Path, staged: Staged, entry: dict[str, Any],
     return out
 
 
-def _decode_into(p: Path, staged: Staged, raw: IO[bytes] | None = None,
+def _decode_into(p: Path, staged: Staged, raw: HashingReader | None = None,
                  limits: InputLimits | None = None, name: str | None = None) -> dict[str, Any]:
     opened, compression = open_input(p, raw)
     stream: Any = opened
