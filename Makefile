@@ -7,15 +7,15 @@ STAMP  := $(VENV)/.installed
 
 .PHONY: install demo test bench bench-store bench-cluster fuzz lint golden clean
 
-# The compiled decoder (pipeline/stdf/_*.c) is rebuilt whenever its sources change; when
+# The compiled decoder (pipeline/read/stdf/_*.c) is rebuilt whenever its sources change; when
 # it cannot be built (no C compiler), the install goes on and says so in one line.
-CSRC   := $(wildcard pipeline/stdf/_*.c pipeline/stdf/_*.h)
+CSRC   := $(wildcard pipeline/read/stdf/_*.c pipeline/read/stdf/_*.h)
 
 $(STAMP): pyproject.toml $(CSRC)
 	@test -x $(PY) || $(PYTHON) -m venv $(VENV)
 	$(PY) -m pip install --quiet --disable-pip-version-check --upgrade pip==25.3
 	$(PY) -m pip install --quiet --disable-pip-version-check -e '.[dev]'
-	@$(PY) -c "from pipeline.stdf import native; assert native.available()" 2>/dev/null || \
+	@$(PY) -c "from pipeline.read.stdf import native; assert native.available()" 2>/dev/null || \
 	  echo "tandem: the compiled decoder did not build (no C compiler?); the numpy path serves: same results, slower"
 	@touch $(STAMP)
 

@@ -52,10 +52,10 @@ def client_run(logs: str, store: str, address: str | None,
     """One ingest in this process (run as ``--client``): the client's own figures. The
     time committing is split into waiting for the derivation (on the cluster, or here
     for a local run) and the client's own publishing (journal, renames, registry)."""
-    from pipeline import ingest as ing
-    from pipeline.cluster import connected
-    from pipeline.cluster_tasks import cluster_runner
-    from pipeline.derivation import local_runner
+    from pipeline.jobs import ingest as ing
+    from pipeline.jobs.cluster import connected
+    from pipeline.jobs.cluster_tasks import cluster_runner
+    from pipeline.jobs.derivation import local_runner
     from pipeline.store import Store
     from pipeline.store.commit import Runner
 
@@ -96,7 +96,7 @@ def client_run(logs: str, store: str, address: str | None,
 def _decode_everything_first() -> None:
     """Commit only once every log is decoded: the commits then run back to back, so
     their rate is the committing client's (and the lot derivation's), not decoding's."""
-    from pipeline import cluster_tasks
+    from pipeline.jobs import cluster_tasks
 
     inner = cluster_tasks.decoded_batches
 

@@ -100,7 +100,7 @@ def baseline_decode(data: bytes) -> tuple[int, dict[str, list[dict[str, Any]]]]:
     """Walk the records with ``struct.unpack_from`` on the header; decode every field of
     PTR/FTR/MPR/PIR/PRR/DTR into a dict, field by field from the catalogue; skip the rest
     by length. Straightforward, not deliberately slowed."""
-    from pipeline.stdf.records import BY_NAME
+    from pipeline.read.stdf.records import BY_NAME
     endian = "<" if data[:2] == b"\x02\x00" else ">"
     wanted = {BY_NAME[n].key: BY_NAME[n] for n in ("PTR", "FTR", "MPR", "PIR", "PRR", "DTR")}
     out: dict[str, list[dict[str, Any]]] = {r.name: [] for r in wanted.values()}
@@ -243,7 +243,7 @@ def run_tandem(runner: Runner, cmd: list[str], path: Path, runs: int) -> dict[st
 
 
 def _feed(data: bytes, path: str | None) -> tuple[Any, list[tuple[str, Any]]]:
-    from pipeline.stdf.decoder import Decoder
+    from pipeline.read.stdf.decoder import Decoder
     d = Decoder(path=path) if path else Decoder()
     got: list[tuple[str, Any]] = []
     mv = memoryview(data)
@@ -290,7 +290,7 @@ def _timer() -> Any:
 
 def phases(path: Path, data: bytes) -> dict[str, float | None]:
     """Each phase of an ingest on its own, one thread, in seconds (module note, 4)."""
-    from pipeline.stdf.scan import scan
+    from pipeline.read.stdf.scan import scan
     out: dict[str, float | None] = {}
     took = _timer()
     h = hashlib.sha256()
@@ -323,9 +323,9 @@ def _engine_phases(mv: memoryview, batches: list, big: bool) -> dict[str, float 
     try:
         import numpy as np
 
-        from pipeline.stdf import native
-        from pipeline.stdf.columnar import layout
-        from pipeline.stdf.records import RECORDS
+        from pipeline.read.stdf import compiled, native
+        from pipeline.read.stdf.columnar import layout
+        from pipeline.read.stdf.records import RECORDS
     except ImportError:
         return {"structure": None, "decode": None, "defaults": None}
     if not native.available():
@@ -336,7 +336,7 @@ def _engine_phases(mv: memoryview, batches: list, big: bool) -> dict[str, float 
     bare = [(k, role, None, -1, -1) for k, role, _, _, _ in full]
 
     def run(specs: list) -> float:
-        e = native._c.Engine(int(big), 64, specs)  # type: ignore[union-attr]
+        e = compiled.EXT.Engine(int(big), 64, specs)  # type: ignore[union-attr]
         took, rec = _timer(), 0
         for pos, end, offs, lens in batches:
             e.batch(mv[pos:pos + end], offs, lens.astype(np.int64), rec)
@@ -351,8 +351,9 @@ def _engine_phases(mv: memoryview, batches: list, big: bool) -> dict[str, float 
 def _write_and_commit(dec: Any, got: list[tuple[str, Any]]) -> dict[str, float | None]:
     """The decoded tables through the store's staging writer, the log's per-file
     derivation, then the commit (its lot's derivation and the publishing)."""
-    from pipeline.derivation import local_runner
-    from pipeline.ingest import _derive_staged, _registry_fields, _stage
+    from pipeline.jobs.decode import derive_staged, stage
+    from pipeline.jobs.derivation import local_runner
+    from pipeline.jobs.ingest import registry_fields
     from pipeline.store import Store
     from pipeline.store.commit import Incoming, Share
 
@@ -361,7 +362,7 @@ def _write_and_commit(dec: Any, got: list[tuple[str, Any]]) -> dict[str, float |
         store = Store(root / "s")
         with store.writer():  # as ingest stages and commits: under the lock
             fid = "0123456789abcdef"
-            staged = _stage(str(store.path), fid)
+            staged = stage(str(store.path), fid)
             took = _timer()
             for name, table in got:
                 staged.write(name, table)
@@ -371,13 +372,13 @@ def _write_and_commit(dec: Any, got: list[tuple[str, Any]]) -> dict[str, float |
                      "status": "ok", "records": dec.records,
                      "parts": staged.rows.get("parts", 0), "size_bytes": 0}
             took = _timer()
-            done = _derive_staged(store.path, staged, entry, None)
+            done = derive_staged(store.path, staged, entry, None)
             derive = took()
             shares = [Share(lot, {t: staged.root / d for t, d in tables.items()},
                             {m: staged.root / f for m, f in done.derived[lot].items()})
                       for lot, tables in done.shares.items()]
             took = _timer()
-            store.commit([Incoming(_registry_fields(entry), shares, staged.root)],
+            store.commit([Incoming(registry_fields(entry), shares, staged.root)],
                          local_runner())
             commit = took()
         return {"write": write, "derive": derive, "commit": commit}
@@ -506,7 +507,7 @@ def main(argv: list[str] | None = None) -> int:
     runner = Runner()
     start_s = start_up(runner, cmd) if cmd is not None else None
     try:
-        from pipeline.stdf.decoder import PATHS, default_path
+        from pipeline.read.stdf.decoder import PATHS, default_path
         paths: list[str | None] = [p for p in PATHS if p != "c" or default_path() == "c"]
     except ImportError:  # a decoder of before the paths had names: its one path
         paths = [None]

@@ -32,7 +32,7 @@ import pyarrow as pa  # noqa: E402
 import pyarrow.parquet as pq  # noqa: E402
 from bench_ingest import OUT, SLICE, ensure_file  # noqa: E402
 
-from pipeline.stdf.decoder import Decoder  # noqa: E402
+from pipeline.read.stdf.decoder import Decoder  # noqa: E402
 from pipeline.store.parquet import STAT_COLUMNS as _STAT_COLUMNS  # noqa: E402
 from pipeline.store.parquet import conform as _conform  # noqa: E402
 from pipeline.store.parquet import target_schema as _target_schema  # noqa: E402

@@ -144,7 +144,7 @@ def _record_values(t: dict[str, Any], s: int, first: bool) -> dict[str, Any]:
 def _offset(name: str, field: str, values: dict[str, Any]) -> int:
     """Byte offset of `field` from the record header, from the catalogue (fixed fields and
     counted arrays before it only)."""
-    from pipeline.stdf.records import BY_NAME, FIXED_SIZE
+    from pipeline.read.stdf.records import BY_NAME, FIXED_SIZE
     pos = 4
     for f in BY_NAME[name].fields:
         if f.name == field:
@@ -163,7 +163,7 @@ def _template(p: Profile, tests: list[dict[str, Any]], first: bool, e: str) -> d
     The DTR markers (after each section's tests) and PRRs go in between the chunks."""
     import numpy as np
 
-    from pipeline.stdf.codec import encode_record
+    from pipeline.read.stdf.codec import encode_record
     parts = [b"".join(encode_record("PIR", {"HEAD_NUM": HEAD, "SITE_NUM": s}, e)
                       for s in SITES)]
     cuts, fslot, ftr = [0], [], []
@@ -271,7 +271,7 @@ def _dies(n_parts: int) -> list[tuple[int, int]]:
 
 # -- the file ---------------------------------------------------------------------------
 def _header(p: Profile, e: str) -> bytes:
-    from pipeline.stdf.codec import encode_record
+    from pipeline.read.stdf.codec import encode_record
 
     def rec(name: str, values: dict[str, Any]) -> bytes:
         return encode_record(name, values, e)
@@ -304,7 +304,7 @@ def _header(p: Profile, e: str) -> bytes:
 
 def _prr_maker(e: str) -> Any:
     """PRR bytes from the fields that change; checked once against encode_record."""
-    from pipeline.stdf.codec import encode_record
+    from pipeline.read.stdf.codec import encode_record
     fixed = struct.Struct(e + "HBBBBBHHHhhI")  # header, HEAD_NUM .. TEST_T (STDF V4, PRR 5/20)
 
     def prr(site: int, flg: int, ntest: int, hb: int, sb: int, x: int, y: int, tt: int,
@@ -331,7 +331,7 @@ def _summaries(p: Profile, tests: list[dict[str, Any]], test_fails: Any, hbin: A
                sbin: Any, finish: int, e: str) -> bytes:
     import numpy as np
 
-    from pipeline.stdf.codec import encode_record
+    from pipeline.read.stdf.codec import encode_record
 
     def rec(name: str, values: dict[str, Any]) -> bytes:
         return encode_record(name, values, e)

@@ -11,7 +11,7 @@ from typing import Any
 __version__ = "0.1.0"
 
 _EXPORTS = {
-    "Store": "store", "IngestReport": "ingest", "TandemError": "errors",
+    "Store": "api", "IngestReport": "jobs.ingest", "TandemError": "errors",
     "FormatError": "errors", "InputError": "errors", "ConfigError": "errors",
     "StoreError": "errors", "UsageError": "errors",
 }

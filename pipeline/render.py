@@ -19,7 +19,18 @@ _NUMERIC = ("TINYINT", "SMALLINT", "INTEGER", "BIGINT", "HUGEINT", "UTINYINT", "
 
 
 def is_numeric_type(duckdb_type: str) -> bool:
+    """Whether a DuckDB column type holds numbers (right-aligned in a table)."""
     return duckdb_type.split("(")[0].upper() in _NUMERIC
+
+
+_FORMULA_START = ("=", "+", "-", "@", "\t", "\r")
+
+
+def csv_cell(value: Any) -> Any:
+    """Text a spreadsheet would run as a formula, with a leading single quote; else as is."""
+    if isinstance(value, str) and value.startswith(_FORMULA_START):
+        return "'" + value
+    return value
 
 
 def format_rows(columns: Sequence[str], numeric: Sequence[bool], rows: Sequence[Sequence[Any]],
@@ -53,8 +64,6 @@ def format_frame(df: Any, fmt: str) -> str:
 
 
 def _csv(columns: Sequence[str], rows: Sequence[Sequence[Any]], text: Sequence[bool]) -> str:
-    from .report.text import csv_cell  # one rule for every CSV Tandem writes
-
     buf = io.StringIO()
     w = csv.writer(buf, lineterminator="\n")
     w.writerow(columns)

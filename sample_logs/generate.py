@@ -4,7 +4,7 @@ Everything here is invented: the device, its lots, the tester, the prober and th
 The script is deterministic (one seeded numpy generator per lot; gzip written with mtime 0
 and no file name), so ``python sample_logs/generate.py [OUT_DIR]`` rewrites byte-identical
 files and ``tests/test_samples.py`` can check that the committed outputs are what it writes
-now. STDF is written only through ``pipeline.stdf.codec.encode_record``.
+now. STDF is written only through ``pipeline.read.stdf.codec.encode_record``.
 
 Timing model of one touchdown (all times integer microseconds from the touchdown start):
 each site first spends its per-part overhead (unattributed: power-up, levels), then runs the
@@ -28,7 +28,7 @@ from typing import Any
 
 import numpy as np
 
-from pipeline.stdf.codec import encode_record
+from pipeline.read.stdf.codec import encode_record
 
 Rec = tuple[str, dict[str, Any]]
 

@@ -20,7 +20,7 @@ from typing import Any
 import polars as pl
 import pytest
 
-from pipeline.store import Store
+from pipeline import Store
 
 SAMPLES = Path(__file__).parent.parent / "sample_logs"
 MARKERS_LE = "pf4_L0231_w01_markers.stdf"
@@ -135,7 +135,7 @@ def cli(capsys: pytest.CaptureFixture[str]) -> Iterator[Callable[..., CliResult]
     """Run ``tandem ARGS...`` in-process; returns exit code, stdout and stderr.
 
     ``ingest`` and ``sql`` install an import hook that keeps pandas out of the process
-    (pipeline/_lean.py); it is removed again so other tests in this session are unaffected.
+    (pipeline/lean.py); it is removed again so other tests in this session are unaffected.
     """
     from pipeline.cli import main
 

@@ -11,7 +11,7 @@ its limit. Part times are PRR.TEST_T only (no markers): the truth of the saving 
 computed here from the touchdowns as written (the slowest site's part time).
 
 Records: STDF V4 FAR 0/10, MIR 1/10, PIR 5/10, BPS 20/10, PTR 15/10, MPR 15/15, FTR 15/20,
-EPS 20/20, PRR 5/20, MRR 1/20 — through pipeline.stdf.codec.encode_record.
+EPS 20/20, PRR 5/20, MRR 1/20 — through pipeline.read.stdf.codec.encode_record.
 """
 
 from __future__ import annotations
@@ -23,7 +23,7 @@ from typing import Any
 
 import numpy as np
 
-from pipeline.stdf.codec import encode_record
+from pipeline.read.stdf.codec import encode_record
 
 N_PTR = 36          # parametric tests, numbered 100..; every 6th has only a high limit
 MPR_ELEMENTS = 8    # one MPR test (number 500) with this many results

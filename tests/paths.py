@@ -12,9 +12,9 @@ from typing import Any
 
 import pyarrow as pa
 
-from pipeline.stdf import native
-from pipeline.stdf.decoder import Decoder
-from pipeline.stdf.reference import Reference
+from pipeline.read.stdf import native
+from pipeline.read.stdf.decoder import Decoder
+from pipeline.read.stdf.reference import Reference
 
 PATHS = [p for p in ("c", "numpy") if p != "c" or native.available()]
 

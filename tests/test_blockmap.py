@@ -10,7 +10,8 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from pipeline.blockmap import (
+from pipeline.errors import ConfigError
+from pipeline.plan.blockmap import (
     UNASSIGNED,
     Alternative,
     Block,
@@ -26,7 +27,6 @@ from pipeline.blockmap import (
     load_block_map,
     parse_block_map,
 )
-from pipeline.errors import ConfigError
 
 SAMPLE = Path(__file__).resolve().parent.parent / "sample_logs" / "blocks.toml"
 

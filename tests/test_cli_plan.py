@@ -15,8 +15,8 @@ from pathlib import Path
 
 import pytest
 
-from pipeline.blockmap import parse_block_map
 from pipeline.plan import CAUTIONS
+from pipeline.plan.blockmap import parse_block_map
 from tests.conftest import (
     MARKERS_GZ,
     SAMPLES,

@@ -21,8 +21,8 @@ from typing import Any
 
 import pytest
 
-from pipeline import cluster as cl
 from pipeline.errors import UsageError
+from pipeline.jobs import cluster as cl
 from pipeline.store import Store
 from tests.conftest import SAMPLES, CliResult
 from tests.loopback_cluster import LoopbackCluster
@@ -168,7 +168,7 @@ def test_task_lost_on_every_try_is_failed_not_stored() -> None:
     reported failed (exit 1, not registered: a rerun tries it again)."""
     from distributed import KilledWorker
 
-    from pipeline.cluster_tasks import _result
+    from pipeline.jobs.cluster_tasks import _result
 
     class Lost:
         def result(self) -> None:

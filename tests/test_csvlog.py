@@ -15,9 +15,9 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from pipeline import csvlog
-from pipeline.csvlog import TIMING_CSV_SCHEMA, read_timing_csv, sniff_timing_csv
 from pipeline.errors import InputError
+from pipeline.read import csvlog
+from pipeline.read.csvlog import TIMING_CSV_SCHEMA, read_timing_csv, sniff_timing_csv
 
 REQUIRED = ["lot_id", "touchdown", "site", "part_id", "block", "start_ms", "end_ms"]
 HEADER = ",".join(REQUIRED)

@@ -1,4 +1,4 @@
-"""The streaming columnar decoder (pipeline/stdf/decoder.py and columnar.py).
+"""The streaming columnar decoder (pipeline/read/stdf/decoder.py and columnar.py).
 
 Two outside references hold the decoder to account. Byte layouts: the hand-written
 vectors of ``stdf_vectors.py`` (each cited to its *STDF V4* record) and the per-record
@@ -31,12 +31,12 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from pipeline.errors import FormatError
-from pipeline.stdf import columnar, native
-from pipeline.stdf.codec import decode_record, encode_record
-from pipeline.stdf.columnar import RUN_PAD, decode_columns
-from pipeline.stdf.decoder import Decoder, Limits
-from pipeline.stdf.records import BY_NAME, Record
-from pipeline.stdf.reference import decode_stream
+from pipeline.read.stdf import columnar, native
+from pipeline.read.stdf.codec import decode_record, encode_record
+from pipeline.read.stdf.columnar import RUN_PAD, decode_columns
+from pipeline.read.stdf.decoder import Decoder, Limits
+from pipeline.read.stdf.records import BY_NAME, Record
+from pipeline.read.stdf.reference import decode_stream
 
 from .paths import assert_same, collect
 from .stdf_vectors import UNKNOWN, VECTORS, Vector, by_id, stream
@@ -735,7 +735,7 @@ def test_blank_text_in_later_ptrs_keeps_the_first_ptrs(blank: tuple[str, ...],
 
 def test_blank_units_reach_the_results_view_as_the_first_ptrs(tmp_path: Any) -> None:
     # The same log through `ingest` into a store: every row of the results view keeps V.
-    from pipeline.ingest import ingest
+    from pipeline.jobs.ingest import ingest
     from pipeline.store import Store
 
     path = tmp_path / "blank_units.stdf"

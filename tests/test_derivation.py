@@ -14,9 +14,9 @@ import numpy as np
 import polars as pl
 import pytest
 
-from pipeline import timing
-from pipeline.estimate import estimate_block_times
-from pipeline.stdf.codec import encode_record
+from pipeline.attribute import timing
+from pipeline.attribute.estimate import estimate_block_times
+from pipeline.read.stdf.codec import encode_record
 from pipeline.store import Store
 from tests.conftest import ALL_LOGS, SAMPLES, TOTALS_ONLY, Ingested, file_truth, ingest_into
 

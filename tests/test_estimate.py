@@ -18,8 +18,8 @@ import numpy as np
 import pytest
 from scipy.optimize import nnls as scipy_nnls
 
+from pipeline.attribute.estimate import Estimate, estimate_block_times, identifiability, nnls
 from pipeline.errors import ConfigError, InputError
-from pipeline.estimate import Estimate, estimate_block_times, identifiability, nnls
 from tests.conftest import TOTALS_ONLY, file_truth
 
 Design = tuple[np.ndarray, list[str]]

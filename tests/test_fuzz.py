@@ -3,7 +3,7 @@
 Two properties, each run with a short budget in the default suite and a long one under
 ``@pytest.mark.fuzz`` (``make fuzz``):
 
-- **Ingest** (``ingest.decode_to_staging``, what ``tandem ingest`` runs per file): every
+- **Ingest** (``decode.decode_to_staging``, what ``tandem ingest`` runs per file): every
   input ends ``ok``, ``partial`` or ``rejected`` with a one-line reason, within a time
   bound, with no exception escaping and no reconciliation failure (records read by type
   equal rows staged).
@@ -42,9 +42,9 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from pipeline.errors import FormatError
-from pipeline.ingest import InputLimits, decode_to_staging
-from pipeline.stdf.decoder import Decoder, Limits
-from pipeline.stdf.reference import decode_stream
+from pipeline.jobs.decode import InputLimits, decode_to_staging
+from pipeline.read.stdf.decoder import Decoder, Limits
+from pipeline.read.stdf.reference import decode_stream
 from pipeline.store import Store
 from tests.conftest import SAMPLES, TIMING_CSV, walk
 from tests.paths import PATHS, assert_same, collect

@@ -19,9 +19,9 @@ from typing import Any
 
 import pytest
 
-from pipeline import ingest as ingest_mod
-from pipeline import nightly
 from pipeline.errors import StoreError
+from pipeline.jobs import ingest as ingest_mod
+from pipeline.jobs import nightly
 from pipeline.store import Store
 from tests.conftest import CliResult
 from tests.test_reliability import REPO, _hold_lock, _release, tiny_log
@@ -197,7 +197,7 @@ def test_bad_block_map_is_a_usage_error_before_anything_runs(
 STUCK = """
 import sys, time
 from pathlib import Path
-from pipeline.nightly import run_nightly
+from pipeline.jobs.nightly import run_nightly
 
 def stuck(store, folder, lot, blocks):
     Path(sys.argv[3], "reporting").touch()

@@ -15,8 +15,8 @@ import pyarrow as pa
 import pyarrow.parquet as pq
 import pytest
 
-from pipeline.stdf import native
-from pipeline.stdf.decoder import Decoder, default_path
+from pipeline.read.stdf import native
+from pipeline.read.stdf.decoder import Decoder, default_path
 from tests.conftest import SAMPLES, ingest_into, truth
 from tests.paths import plain
 

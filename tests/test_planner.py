@@ -13,12 +13,12 @@ from dataclasses import replace
 
 import pytest
 
-from pipeline.blockmap import parse_block_map
+from pipeline.cli.plan_text import render
 from pipeline.plan import CAUTIONS, build_problem, plan
+from pipeline.plan.blockmap import parse_block_map
 from pipeline.plan.measure import Measured
 from pipeline.plan.planner import build_spec
 from pipeline.plan.projection import uph
-from pipeline.plan.report import render
 from pipeline.plan.solvers import solve_exhaustive
 from tests.test_plan_solvers import check_schedule
 

@@ -2,7 +2,7 @@
 untrusted text, the store lock, readers during an ingest, and kill -9 at any moment.
 
 Every log here is invented by ``tiny_log`` below, written only through the project's
-encoder (``pipeline.stdf.codec.encode_record``), so each test knows what the log holds
+encoder (``pipeline.read.stdf.codec.encode_record``), so each test knows what the log holds
 (parts, results, their sum) without asking the code under test. Record layouts are STDF
 V4's: the record header REC_LEN U*2, REC_TYP U*1, REC_SUB U*1; BPS 20/10 and EPS 20/20
 bracket a section; GDR 50/10 is FLD_CNT U*2 then V*n items (one type byte, codes 0-13,
@@ -35,10 +35,10 @@ import duckdb
 import pytest
 import zstandard
 
-from pipeline import ingest as ingest_mod
 from pipeline.errors import StoreError
-from pipeline.ingest import InputLimits, ReconciliationError, ingest
-from pipeline.stdf.codec import encode_record
+from pipeline.jobs.decode import InputLimits, ReconciliationError
+from pipeline.jobs.ingest import ingest
+from pipeline.read.stdf.codec import encode_record
 from pipeline.store import Staged, Store
 from tests.conftest import SAMPLES, STDF_LOGS, TIMING_CSV, CliResult
 
@@ -200,16 +200,6 @@ def start_cli(*args: str | Path, env: dict[str, str] | None = None) -> subproces
     return subprocess.Popen([sys.executable, "-m", "pipeline", *map(str, args)], cwd=REPO,
                             stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True,
                             env={**os.environ, **(env or {})})
-
-
-def one_entry(store: Store, path: Path) -> tuple[dict[str, Any], str | None]:
-    """Decode one file into staging as ingest does; the staging folder is removed."""
-    import shutil
-
-    entry, root = ingest_mod.decode_to_staging(str(store.path), str(path), None)
-    if root:
-        shutil.rmtree(root)
-    return entry, root
 
 
 # == 1 and 5. salvage and hostile input: every bad-input class in one mixed run ===========

@@ -24,13 +24,13 @@ from typing import Any
 import polars as pl
 import pytest
 
-from pipeline import timing
+from pipeline.attribute import timing
+from pipeline.read.stdf.codec import encode_record
 from pipeline.report import ReportFiles, build_report
 from pipeline.report.charts import AMBER, BLOCK_COLOURS, CORAL, INK, MIST, SLATE, TEAL
 from pipeline.report.export import strip_schema
 from pipeline.report.facts import NO_PLAN
 from pipeline.report.text import CAUTIONS, csv_cell, md_text
-from pipeline.stdf.codec import encode_record
 from tests.conftest import SAMPLES, Ingested, ingest_into
 
 GOLDEN = Path(__file__).parent / "golden"
@@ -57,7 +57,7 @@ def sample_plan(store: Ingested) -> dict[str, Any]:
     pipeline.plan.plan_lot; test_frozen_plan_is_the_planners_current_answer keeps it honest."""
     path = GOLDEN / "sample_plan.json"
     if REGEN:
-        from pipeline.report.plan import make_plan
+        from pipeline.plan import make_plan
 
         path.parent.mkdir(parents=True, exist_ok=True)
         path.write_text(json.dumps(make_plan(store.store, str(BLOCKS), LOT), indent=1) + "\n",

@@ -1,6 +1,6 @@
 """The committed sample logs: what the generator writes now, and what it says they hold.
 
-Decoding here uses only the *reference* decoder (pipeline.stdf.codec.iter_records /
+Decoding here uses only the *reference* decoder (pipeline.read.stdf.codec.iter_records /
 decode_record), so these tests check the bytes against the STDF V4 layouts and against the
 generator's ground truth (sample_logs/truth.json), not against the production reader.
 """
@@ -25,7 +25,7 @@ import numpy as np
 import pytest
 from scipy.optimize import nnls
 
-from pipeline.stdf.codec import decode_record, detect_endian, iter_records
+from pipeline.read.stdf.codec import decode_record, detect_endian, iter_records
 from tests.conftest import (
     CONCURRENT,
     MARKERS_BE,

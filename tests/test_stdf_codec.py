@@ -1,4 +1,4 @@
-"""The per-record codec against the standard's byte layouts (pipeline/stdf/codec.py).
+"""The per-record codec against the standard's byte layouts (pipeline/read/stdf/codec.py).
 
 The vectors in ``stdf_vectors.py`` are written by hand from the *STDF V4* record tables;
 each is checked both ways: our encoder must produce exactly those bytes, and the
@@ -16,8 +16,8 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from pipeline.errors import FormatError
-from pipeline.stdf.codec import decode_record, detect_endian, encode_record, iter_records
-from pipeline.stdf.records import BY_NAME, RECORDS, VN_TYPES, Record
+from pipeline.read.stdf.codec import decode_record, detect_endian, encode_record, iter_records
+from pipeline.read.stdf.records import BY_NAME, RECORDS, VN_TYPES, Record
 
 from .stdf_vectors import UNKNOWN, VECTORS, Unknown, Vector, by_id, stream
 

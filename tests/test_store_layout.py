@@ -19,7 +19,7 @@ import pyarrow as pa
 import pyarrow.parquet as pq
 import pytest
 
-from pipeline.ingest import ingest
+from pipeline.jobs.ingest import ingest
 from pipeline.store import Store
 from pipeline.store.layout import lot_from_key, lot_key
 from tests.conftest import ALL_LOGS, SAMPLES, STDF_LOGS, TIMING_CSV, file_truth, ingest_into
@@ -164,7 +164,7 @@ def test_a_kill_while_a_lot_is_derived_leaves_it_as_before(tmp_path: Path) -> No
 def _as_layout1(src: Path, dst: Path) -> None:
     """The same logs as the first release stored them: tables/<t>/file_id=<id>/, one
     registry file per log under tables/files/, no store.json, no lot partitions."""
-    from pipeline.schemas import FILES
+    from pipeline.read.schemas import FILES
     from pipeline.store.registry import Registry
 
     shutil.copytree(src / "tables", dst / "tables")

@@ -11,7 +11,7 @@ import numpy as np
 import polars as pl
 import pytest
 
-from pipeline import timing
+from pipeline.attribute import timing
 from tests.conftest import MARKERS_LE, TIMING_CSV, TOTALS_ONLY, TSR_ONLY, file_truth, raw_parquet
 
 
@@ -207,7 +207,7 @@ def _drift_frame(values: list[float]) -> list[bool]:
 
 def test_drift_flags_a_block_that_got_slower(tmp_path):  # type: ignore[no-untyped-def]
     """Five lots of one block, the last 10 % slower: only the last is flagged."""
-    from pipeline.store import Store
+    from pipeline import Store
     from tests.conftest import SAMPLES
 
     # Build lots from the timing CSV with the block time scaled per lot.

@@ -16,7 +16,7 @@ import pytest
 from scipy import stats as sps
 from statsmodels.stats.multitest import multipletests
 
-from pipeline.store import Store
+from pipeline import Store
 from pipeline.verify import VERDICTS, Rules, compare_lots, verify
 from pipeline.verify.queries import LotData, Reader, read_lot
 from tests.conftest import SAMPLES, CliResult, Ingested, truth

@@ -19,8 +19,8 @@ import pytest
 from polars.testing import assert_frame_equal
 
 from pipeline.errors import StoreError
-from pipeline.schemas import table_schemas
-from pipeline.stdf.codec import encode_record
+from pipeline.read.schemas import table_schemas
+from pipeline.read.stdf.codec import encode_record
 from pipeline.store import SQL_DIR, Store, to_frame
 from tests.conftest import (
     ALL_LOGS,

@@ -14,9 +14,9 @@ from __future__ import annotations
 
 import re
 
-from ..blockmap import draft_block_map
 from ..store import Store
-from .measure import Measured, _measure, _Session
+from .blockmap import draft_block_map
+from .measure import Measured, Session, measure_on
 
 PIN_QUERY = """
 with lot_files as (
@@ -53,7 +53,7 @@ order by all
 """
 
 
-def pin_uses(db: _Session, lot: str) -> dict[str, list[str]]:
+def pin_uses(db: Session, lot: str) -> dict[str, list[str]]:
     """block -> the pin resources it touches (only blocks with pin records)."""
     rows = db.sql(PIN_QUERY, [lot])
     uses: dict[str, list[str]] = {}
@@ -71,9 +71,9 @@ def _clean(name: str) -> str:
 
 def draft_map(store: Store, lot: str | None = None) -> tuple[str, Measured, dict[str, list[str]]]:
     """(TOML text, the lot's measurements it was drafted from, the uses inferred)."""
-    db = _Session(store)
+    db = Session(store)
     try:
-        m = _measure(db, lot, "mean_ms")
+        m = measure_on(db, lot, "mean_ms")
         uses = pin_uses(db, m.lot_id)
     finally:
         db.close()

@@ -46,7 +46,7 @@ class Measured:
         return per[site] if site in per else per[None]
 
 
-class _Session:
+class Session:
     """A store's views on one open connection; quacks like ``Store.sql`` so timing's
     helpers can share it."""
 
@@ -71,7 +71,7 @@ METHOD_RANK = {"marker": 1, "csv": 2, "tsr": 3, "estimate": 4}
 def choose_lot(db: Any, lot: str | None) -> tuple[str, int, str | None]:
     """(lot_id, parts, a note when the choice was ours). Reads one small summary per lot
     (only that lot's with ``lot`` given). UsageError for a lot the store does not hold."""
-    from ..timing import check_lot
+    from ..attribute.timing import check_lot
 
     check_lot(db, lot)
     where, params = ("where lot_id = ?", [lot]) if lot is not None else ("", [])
@@ -96,14 +96,15 @@ def choose_lot(db: Any, lot: str | None) -> tuple[str, int, str | None]:
 def measure_lot(store: Store, lot: str | None = None, percentile: str = "mean") -> Measured:
     if percentile not in COLUMNS:
         raise UsageError(f"--percentile must be one of {', '.join(COLUMNS)}, not {percentile!r}")
-    db = _Session(store)
+    db = Session(store)
     try:
-        return _measure(db, lot, COLUMNS[percentile])
+        return measure_on(db, lot, COLUMNS[percentile])
     finally:
         db.close()
 
 
-def _measure(db: _Session, lot: str | None, column: str) -> Measured:
+def measure_on(db: Session, lot: str | None, column: str) -> Measured:
+    """What ``measure_lot`` measures, on an open Session (``column``: the block-time column)."""
     lot_id, parts, choice = choose_lot(db, lot)
     rows = _block_rows(db, lot_id)
     if rows.is_empty():
@@ -124,7 +125,7 @@ def _measure(db: _Session, lot: str | None, column: str) -> Measured:
                     ms, index, tuple(notes))
 
 
-def _block_rows(db: _Session, lot_id: str) -> pl.DataFrame:
+def _block_rows(db: Session, lot_id: str) -> pl.DataFrame:
     return db.sql(f"""select block, site, mean_ms, p50_ms, p95_ms, method from block_times
                       where lot_id = ? and block not in ({', '.join('?' for _ in NOT_BLOCKS)})
                       and mean_ms is not null order by block, site nulls first""",
@@ -151,7 +152,7 @@ def _times(rows: pl.DataFrame, column: str) -> tuple[dict[str, dict[int | None, 
     return times, note
 
 
-def _program_order(db: _Session, lot_id: str, blocks: list[str]) -> list[str]:
+def _program_order(db: Session, lot_id: str, blocks: list[str]) -> list[str]:
     ranks = db.sql("""
         with stdf as (
             select block, row_number() over (

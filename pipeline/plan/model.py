@@ -36,7 +36,7 @@ from collections.abc import Iterable, Mapping, Sequence
 from dataclasses import dataclass, field, replace
 from functools import cached_property
 
-from ..blockmap import _topological  # shared: the block map's own order of blocks
+from .blockmap import topological  # shared: the block map's own order of blocks
 
 US_PER_MS = 1000
 MW_PER_W = 1000
@@ -224,7 +224,7 @@ def program_order(blocks: Sequence[BlockSpec]) -> list[BlockSpec]:
     known = {b.name for b in blocks}
     by_name = {b.name: b for b in blocks}
     graph = {b.name: [d for d in b.after if d in known] for b in blocks}
-    return [by_name[n] for n in _topological(graph, "the plan")]
+    return [by_name[n] for n in topological(graph, "the plan")]
 
 
 def build_problem(spec: PlanSpec) -> Problem:

@@ -14,9 +14,9 @@ from collections.abc import Callable
 from dataclasses import dataclass, field
 from typing import Any
 
-from ..blockmap import UNASSIGNED, Alternative, BlockMap, WhatIf
 from ..errors import ConfigError
 from ..store import Store
+from .blockmap import UNASSIGNED, Alternative, BlockMap, WhatIf
 from .candidates import Candidate, price_overlaps
 from .measure import Measured, measure_lot
 from .model import BlockSpec, PlanSpec, PoolSpec, Problem, Solution, build_problem, make_solution
@@ -185,6 +185,20 @@ def build_spec(bm: BlockMap, m: Measured) -> tuple[PlanSpec, list[str], list[str
 def plan_lot(store: Store, bm: BlockMap, lot: str | None = None, percentile: str = "mean",
              time_limit_s: float = 10.0, **options: Any) -> PlanResult:
     return plan(bm, measure_lot(store, lot, percentile), time_limit_s, **options)
+
+
+def make_plan(store: Store, blocks_file: str, lot: str | None) -> dict[str, Any]:
+    """The plan of ``lot`` with the block map in ``blocks_file``, as `tandem plan --json`
+    prints it, with the baseline schedule (``baseline_schedule``) the report draws."""
+    from .blockmap import load_block_map
+
+    result = plan_lot(store, load_block_map(blocks_file), lot)
+    out: dict[str, Any] = result.to_json()
+    if "baseline_schedule" not in out:
+        out["baseline_schedule"] = [
+            {"block": b, "site": s, "start_ms": round(t0, 3), "end_ms": round(t1, 3)}
+            for b, s, t0, t1 in result.baseline.schedule]
+    return out
 
 
 def baseline(spec: PlanSpec) -> Solution:

@@ -23,7 +23,7 @@ from collections.abc import Mapping
 from dataclasses import dataclass
 from typing import Any
 
-from ..blockmap import Economics
+from .blockmap import Economics
 from .model import US_PER_MS, PlanSpec, Problem, Solution
 
 

@@ -15,7 +15,7 @@ from __future__ import annotations
 
 from dataclasses import dataclass, replace
 
-from ..blockmap import Alternative, Broadcast, ExtraInstrument, WhatIf
+from .blockmap import Alternative, Broadcast, ExtraInstrument, WhatIf
 from .model import BlockSpec, PlanSpec, PoolSpec
 
 

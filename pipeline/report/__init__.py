@@ -3,12 +3,13 @@ summary.md, summary.json and CSV tables.
 
 ``build_report(store, out, blocks=..., lot=...)`` is the one entry point; `tandem report`
 and `tandem demo` call it. Without a block map the report is attribution only and says so.
+
+May import: ``pipeline.verify``, ``pipeline.plan``, ``pipeline.attribute``,
+``pipeline.store`` and the shared modules (``render`` for CSV cells); never jobs or the CLI.
 """
 
 from __future__ import annotations
 
-import csv
-import json
 from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
@@ -48,13 +49,15 @@ def build_report(store: Store, out: str | Path, blocks: str | None = None,
     a section of its own (report/verify.py).
     """
     from ..errors import UsageError
+    from ..plan import make_plan
     from .charts import figures
     from .data import gather
     from .export import write_chart
     from .facts import tables
     from .html import render_html
-    from .plan import PlanView, make_plan
+    from .plan import PlanView
     from .summary import render_md, summary_json
+    from .text import safe_json, write_csv
     from .verify import section_html, section_md, verify_figures, verify_tables
 
     say = progress or (lambda step, done, total: None)
@@ -94,15 +97,6 @@ def build_report(store: Store, out: str | Path, blocks: str | None = None,
                        {f.name: f.spec() for f in figs}, {f.name: f.title for f in figs})
 
 
-def safe_json(obj: Any) -> str:
-    """Indented JSON with ``< > &`` written as ``\\u003c`` and so on: the same values
-    to any JSON reader, and inert if someone pastes the file into a page."""
-    from .text import finite
-
-    text = json.dumps(finite(obj), indent=1, default=str, allow_nan=False)
-    return text.replace("&", "\\u0026").replace("<", "\\u003c").replace(">", "\\u003e")
-
-
 def _clear(out: Path) -> None:
     """Make the folders and remove what an earlier report wrote there (only our own
     file kinds), so no stale chart survives a report that no longer draws it."""
@@ -110,27 +104,6 @@ def _clear(out: Path) -> None:
         (out / sub).mkdir(parents=True, exist_ok=True)
         for old in (out / sub).glob(pattern):
             old.unlink()
-
-
-def write_csv(table: Any, path: Path) -> Path:
-    """One table as CSV; text cells that a spreadsheet would run as a formula get a
-    leading single quote (text.csv_cell)."""
-    from .text import csv_cell
-
-    with path.open("w", newline="", encoding="utf-8") as fh:
-        w = csv.writer(fh)
-        w.writerow([csv_cell(c) for c in table.columns])
-        for row in table.rows:
-            w.writerow([csv_cell(_csv_value(v)) for v in row])
-    return path
-
-
-def _csv_value(v: Any) -> Any:
-    if isinstance(v, list | tuple):
-        return " + ".join(str(x) for x in v)
-    if hasattr(v, "isoformat"):
-        return v.isoformat(sep=" ")
-    return v
 
 
 __all__ = ["ReportFiles", "build_report"]

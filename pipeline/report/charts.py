@@ -84,7 +84,8 @@ def _ranked(rows: list[dict[str, Any]], key: str, order: list[Any]) -> list[dict
 BY_RANK = alt.EncodingSortField("rank", op="min", order="ascending")
 
 
-def _title(text: str, subtitle: str | None = None) -> alt.TitleParams:
+def chart_title(text: str, subtitle: str | None = None) -> alt.TitleParams:
+    """A chart's title (the finding) with an optional subtitle, in the report's style."""
     return alt.TitleParams(text=text, subtitle=subtitle or alt.Undefined)
 
 
@@ -149,7 +150,7 @@ def pareto(data: ReportData) -> Figure:
         tooltip=[alt.Tooltip("block:N"), alt.Tooltip("cum_pct:Q", title="cumulative (%)",
                                                       format=".1f")])
     chart = alt.layer(bars, line).properties(
-        width=WIDTH, height=300, title=_title(title, f"Lot {data.lot_id}: bars = each block's "
+        width=WIDTH, height=300, title=chart_title(title, f"Lot {data.lot_id}: bars = each block's "
                                               "share, line = cumulative share"))
     return Figure("block_share", title, "Pareto of tester time: each block's share of the "
                   "recorded part time, largest first, with the cumulative share; the last "
@@ -182,7 +183,7 @@ def site_heatmap(data: ReportData) -> Figure | None:
         text=alt.Text("mean_ms:Q", format=".0f"))
     chart = alt.layer(cells, text).properties(
         width=WIDTH, height=40 * df["site"].n_unique(),
-        title=_title(title, f"Lot {data.lot_id}: mean block time per site (ms, in each cell); "
+        title=chart_title(title, f"Lot {data.lot_id}: mean block time per site (ms, in each cell); "
                      "colour = difference from the block's all-site mean"))
     return Figure("site_block_heatmap", title, "Mean time of each block on each site; the "
                   "colour shows how far a site is from that block's all-site mean, so an "
@@ -216,7 +217,7 @@ def part_times(data: ReportData) -> Figure | None:
                                                                      tooltip=tips)
     chart = alt.layer(whisker, box, median, mean).properties(
         width=min(WIDTH, 120 * len(df) + 80), height=300,
-        title=_title(title, f"Lot {data.lot_id}: box = middle half of parts, line = median, "
+        title=chart_title(title, f"Lot {data.lot_id}: box = middle half of parts, line = median, "
                      "dot = mean, whiskers = fastest to slowest"))
     return Figure("part_time_by_site", title, "The spread of recorded part test time "
                   "(PRR TEST_T or the timing CSV) on each site.", chart)
@@ -259,7 +260,7 @@ def lots_trend(data: ReportData) -> Figure | None:
         opacity=alt.condition(alt.datum.is_flagged, alt.value(1.0), alt.value(0.0)))
     chart = alt.layer(lines, flags).properties(
         width=WIDTH, height=300,
-        title=_title(title, "Each block's mean per lot against its median over the lots; "
+        title=chart_title(title, "Each block's mean per lot against its median over the lots; "
                      "coral diamonds = flagged by the drift check"))
     return Figure("block_time_by_lot", title, "Block time from lot to lot. A flag means more "
                   "than 3 robust sigmas and 2 % from the median of the lots before it; the "
@@ -298,7 +299,7 @@ def estimate_ci(data: ReportData) -> Figure | None:
     layered = alt.layer(bars, points).properties(width=WIDTH - 120,
                                                  height=22 * df["block"].n_unique())
     chart = layered.facet(row=alt.Row("lot_id:N", title="lot")) if len(lots) > 1 else layered
-    chart = chart.properties(title=_title(title, "Dot = estimate, line = 95 % bootstrap "
+    chart = chart.properties(title=chart_title(title, "Dot = estimate, line = 95 % bootstrap "
                                           "interval; triangles = blocks the data cannot "
                                           "tell apart (shown as an even split)"))
     return Figure("estimate_intervals", title, "Where a lot records only part totals, block "
@@ -335,7 +336,7 @@ def touchdown_gantt(data: ReportData, plan: PlanView) -> Figure:
             .properties(width=WIDTH, height=(14 * lanes + 10) * max(1, len(plan.sites)),
                         title=alt.TitleParams(label, fontSize=12, color=INK)))
     chart = alt.vconcat(*parts, spacing=24).resolve_scale(x="shared", color="shared").properties(
-        title=_title(title, f"Lot {plan.lot_id}: sites as rows (blocks at the same time "
+        title=chart_title(title, f"Lot {plan.lot_id}: sites as rows (blocks at the same time "
                      "side by side within a row), one colour per block, one time axis"))
     return Figure("touchdown_before_after", title, "The touchdown as the program runs it "
                   "(before) and as planned (after), each block a bar on its site's row.",
@@ -364,7 +365,7 @@ def savings_waterfall(data: ReportData, plan: PlanView) -> Figure:
         y=alt.Y("top_ms:Q"), text=alt.Text("text:N"))
     chart = alt.layer(bars, text).properties(
         width=WIDTH, height=300,
-        title=_title(title, f"Lot {plan.lot_id}: the measured touchdown, what each "
+        title=chart_title(title, f"Lot {plan.lot_id}: the measured touchdown, what each "
                      "candidate overlap saves on its own, the plan; what-ifs one at a time"))
     return Figure("savings_waterfall", title, "From the baseline to the plan: each "
                   "candidate's marginal saving (what the plan loses without it), the rest of "

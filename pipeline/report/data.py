@@ -14,7 +14,7 @@ from typing import Any
 
 import polars as pl
 
-from .. import timing
+from ..attribute import timing
 from ..errors import InputError
 from ..plan.measure import choose_lot
 from ..store import Store, to_frame

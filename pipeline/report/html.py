@@ -101,7 +101,8 @@ def _fmt(v: int | float) -> str:
     return f"{v:,}" if isinstance(v, int) else f"{v:,.2f}"
 
 
-def _figure(i: int, f: Figure) -> str:
+def figure_html(i: int, f: Figure) -> str:
+    """One chart's ``<figure>`` for the page: heading, the chart's place and its Vega spec."""
     spec = script_json(to_vega(f.spec()))
     return (f'<figure id="{html_text(f.name)}"><h2>{html_text(HEADINGS.get(f.name, f.title))}</h2>'
             f'<div class="chart" id="chart-{i}" role="img" aria-label="{html_text(f.title)}">'
@@ -138,7 +139,7 @@ def render_html(data: ReportData, plan: PlanView | None, figures: list[Figure],
         '<noscript><p class="noplan">Charts need JavaScript; the same charts are in the '
         "charts/ folder as SVG and PNG.</p></noscript>",
     ]
-    parts += [_figure(i, f) for i, f in enumerate(figures)]
+    parts += [figure_html(i, f) for i, f in enumerate(figures)]
     for name in order:
         if name in all_tables and all_tables[name].rows:
             parts.append(f'<div class="wide">{_table(all_tables[name], 40)}</div>')

@@ -2,9 +2,8 @@
 read defensively — the keys beyond the contract (what-ifs, the baseline schedule, the
 projection's layout) are read where present and left out where not.
 
-``make_plan`` calls the very function `tandem plan` calls (``pipeline.plan.plan_lot``)
-and returns its ``to_json()`` dict; when that dict carries no baseline schedule, the one
-the planner computed (``PlanResult.baseline``) is added as ``baseline_schedule``.
+The dict comes from ``pipeline.plan.make_plan``: the very function `tandem plan` calls,
+with the baseline schedule added.
 """
 
 from __future__ import annotations
@@ -12,22 +11,7 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 from typing import Any
 
-from ..store import Store
-
 MAX_STEPS = 6  # candidates drawn one by one in the waterfall; the rest are lumped
-
-
-def make_plan(store: Store, blocks_file: str, lot: str | None) -> dict[str, Any]:
-    from ..blockmap import load_block_map
-    from ..plan import plan_lot
-
-    result = plan_lot(store, load_block_map(blocks_file), lot)
-    out: dict[str, Any] = result.to_json()
-    if "baseline_schedule" not in out:
-        out["baseline_schedule"] = [
-            {"block": b, "site": s, "start_ms": round(t0, 3), "end_ms": round(t1, 3)}
-            for b, s, t0, t1 in result.baseline.schedule]
-    return out
 
 
 def _schedule(rows: Any) -> list[dict[str, Any]]:

@@ -8,17 +8,22 @@ these helpers make it inert in each output, and hold the cautions every report c
   that could start a heading or a list; line breaks become spaces. An underscore between
   two letters or digits is left alone: CommonMark never reads it as emphasis, and
   ``scan_core0`` stays legible in the raw file.
-- CSV: ``csv_cell`` prefixes a single quote to a cell a spreadsheet would run as a
-  formula (one starting ``= + - @``, a tab or a carriage return). Numbers are left alone:
-  the rule is for text only, so ``-3.5`` stays a number.
+- CSV: ``csv_cell`` (pipeline/render.py, shared with the terminal's CSV) prefixes a
+  single quote to a cell a spreadsheet would run as a formula (one starting ``= + - @``,
+  a tab or a carriage return). Numbers are left alone: the rule is for text only, so
+  ``-3.5`` stays a number.
 """
 
 from __future__ import annotations
 
+import csv
 import html
 import json
 import math
+from pathlib import Path
 from typing import Any
+
+from ..render import csv_cell  # one rule for every CSV Tandem writes
 
 CAUTIONS = (
     "Running blocks concurrently raises power draw and die temperature: it can damage "
@@ -35,7 +40,6 @@ CAUTION_HEADLINE = "Read before acting on this report"
 
 _MD_SPECIAL = set("\\`*_[]|<>&~")
 _MD_START = set("#+-=!.")  # meaningful only where a line begins: escaped there
-_FORMULA_START = ("=", "+", "-", "@", "\t", "\r")
 
 
 def html_text(value: Any) -> str:
@@ -75,7 +79,27 @@ def md_text(value: Any) -> str:
     return "".join(out)
 
 
-def csv_cell(value: Any) -> Any:
-    if isinstance(value, str) and value.startswith(_FORMULA_START):
-        return "'" + value
-    return value
+def safe_json(obj: Any) -> str:
+    """Indented JSON with ``< > &`` written as ``\\u003c`` and so on: the same values
+    to any JSON reader, and inert if someone pastes the file into a page."""
+    text = json.dumps(finite(obj), indent=1, default=str, allow_nan=False)
+    return text.replace("&", "\\u0026").replace("<", "\\u003c").replace(">", "\\u003e")
+
+
+def write_csv(table: Any, path: Path) -> Path:
+    """One table as CSV; text cells that a spreadsheet would run as a formula get a
+    leading single quote (csv_cell)."""
+    with path.open("w", newline="", encoding="utf-8") as fh:
+        w = csv.writer(fh)
+        w.writerow([csv_cell(c) for c in table.columns])
+        for row in table.rows:
+            w.writerow([csv_cell(_csv_value(v)) for v in row])
+    return path
+
+
+def _csv_value(v: Any) -> Any:
+    if isinstance(v, list | tuple):
+        return " + ".join(str(x) for x in v)
+    if hasattr(v, "isoformat"):
+        return v.isoformat(sep=" ")
+    return v

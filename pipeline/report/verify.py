@@ -19,9 +19,9 @@ import altair as alt
 
 from .. import __version__
 from ..verify import CAUTIONS as VERIFY_CAUTIONS
-from .charts import AMBER, BY_RANK, CORAL, MIST, SLATE, TEAL, WIDTH, Figure, _title, theme
+from .charts import AMBER, BY_RANK, CORAL, MIST, SLATE, TEAL, WIDTH, Figure, chart_title, theme
 from .facts import Table, num
-from .html import _figure
+from .html import figure_html
 from .text import CAUTION_HEADLINE, CAUTIONS, html_text, md_text
 
 VERDICT_COLOURS = {"same": SLATE, "shifted": CORAL, "too few": MIST}
@@ -97,7 +97,7 @@ def shift_spread(v: dict[str, Any]) -> Figure | None:
     zero = alt.Chart(alt.Data(values=[{"x": 0}])).mark_rule(color=MIST).encode(x="x:Q")
     one = alt.Chart(alt.Data(values=[{"y": 1}])).mark_rule(color=MIST).encode(y="y:Q")
     chart = alt.layer(zero, one, points, labels).properties(
-        width=WIDTH, height=320, title=_title(title, f"{v['candidate']} against "
+        width=WIDTH, height=320, title=chart_title(title, f"{v['candidate']} against "
                                               f"{v['baseline']}: one dot per test; coral = "
                                               f"moved at a {100 * v['fdr']:g} % false "
                                               "discovery rate"))
@@ -139,7 +139,7 @@ def distributions(v: dict[str, Any]) -> Figure | None:
         data=alt.Data(values=rows), spec=bars,
         facet=alt.Facet("test:N", title=None, sort=BY_RANK), columns=3,
     ).resolve_scale(x="independent", y="independent").properties(
-        title=_title(title, "Histograms of each lot's in-limit values (grey = baseline, "
+        title=chart_title(title, "Histograms of each lot's in-limit values (grey = baseline, "
                      "amber = candidate), the tests that moved"))
     return Figure("verify_distributions", title, "The distributions of the tests that "
                   "moved, before (the serial program) and after (the concurrent one), as "
@@ -171,7 +171,7 @@ def time_chart(v: dict[str, Any]) -> Figure | None:
         tooltip=[alt.Tooltip("block:N"), alt.Tooltip("series:N", title="time"),
                  alt.Tooltip("ms:Q", title="mean (ms)", format=".1f"),
                  alt.Tooltip("status:N")]
-    ).properties(width=WIDTH, height=24 * len(blocks) + 20, title=_title(
+    ).properties(width=WIDTH, height=24 * len(blocks) + 20, title=chart_title(
         title, "Each block's mean time in the baseline lot"
         + (", in the plan's schedule" if planned else "") + " and in the candidate lot"))
     return Figure("verify_time", title, "Blocks keep their own time in a concurrent "
@@ -288,7 +288,7 @@ def section_html(v: dict[str, Any], figs: list[Figure], first: int) -> str:
              f'<p class="sub">{html_text(_subline(v))}</p>', f'<div class="keys">{keys}</div>',
              '<ul class="verify-cautions">' + "".join(
                  f"<li>{html_text(c)}</li>" for c in VERIFY_CAUTIONS) + "</ul>"]
-    parts += [_figure(first + i, f) for i, f in enumerate(figs)]
+    parts += [figure_html(first + i, f) for i, f in enumerate(figs)]
     parts.append(_html_table(t_tests, TESTS_SHOWN))
     if v["match"] != "none":
         parts.append(_html_table(t_units) if t_units.rows else
@@ -352,8 +352,8 @@ def write_verify_report(verification: Any, out: str | Path) -> VerifyFiles:
     """verify.html (self-contained, as report.html), verify.md, verify.json, the charts
     and tables of one verification, into ``out`` (created; earlier verify_* files there
     are replaced, anything else is left alone)."""
-    from . import safe_json, write_csv
     from .export import write_chart
+    from .text import safe_json, write_csv
 
     v = verification if isinstance(verification, dict) else verification.to_json()
     out = Path(out)

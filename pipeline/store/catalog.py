@@ -95,7 +95,7 @@ def derived_view(model: str) -> str:
 
 def catalog_statements() -> list[str]:
     """Registry views, raw views, then the models in an order that satisfies their inputs."""
-    from ..schemas import table_schemas
+    from ..read.schemas import table_schemas
 
     ms = load_models()
     stmts = registry_statements()
@@ -190,3 +190,13 @@ def _remember_catalog(built: Path, cached: Path | None) -> None:
         os.replace(tmp, cached)
     except OSError:
         pass  # a cache only: the next store builds its catalog again
+
+
+# Bump when a Python model (estimate, site summary) computes differently: stores derived
+# before must then be brought up to date (`tandem upgrade`), as when a SQL model changes.
+DERIVATION_VERSION = "1"
+
+
+def derivation_version() -> str:
+    """What the derived tables were computed by: the Python models' and the catalog's version."""
+    return f"{DERIVATION_VERSION}:{catalog_version()}"

@@ -26,12 +26,12 @@ import os
 import shutil
 import time
 import uuid
-from collections.abc import Callable, Sequence
+from collections.abc import Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
-from .derive import file_models
+from .derive import FileTask, LotTask, Runner, file_models
 from .layout import (
     GC_LIST,
     JOURNAL,
@@ -69,34 +69,6 @@ class Incoming:
     @property
     def file_id(self) -> str:
         return str(self.entry["file_id"])
-
-
-@dataclass(frozen=True)
-class FileTask:
-    root: Path
-    file_id: str
-    tables: dict[str, Path]
-    out: Path
-    rules: Path | None
-
-
-@dataclass(frozen=True)
-class LotTask:
-    root: Path
-    lot: str
-    per_file: dict[str, list[Path]]
-    raw: dict[str, list[Path]]
-    out: Path
-    rules: Path | None
-
-
-@dataclass
-class Runner:
-    """How derivation tasks run: in this process by default; a pool or a cluster maps
-    them elsewhere (each task only reads and writes files under the store)."""
-
-    files: Callable[[Sequence[FileTask]], list[dict[str, Path]]]
-    lots: Callable[[Sequence[LotTask]], list[dict[str, Path]]]
 
 
 def commit(root: Path, registry: Registry, incoming: Sequence[Incoming], runner: Runner,

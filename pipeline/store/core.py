@@ -23,6 +23,8 @@ from typing import TYPE_CHECKING, Any
 
 from .. import __version__
 from ..errors import StoreError, UsageError
+from .catalog import derivation_version
+from .frames import to_frame
 from .layout import FORMAT, LOCK, META, RULES, STATE, STORE_FILE, TABLES
 
 if TYPE_CHECKING:  # duckdb, polars and pyarrow load only when needed
@@ -32,17 +34,6 @@ if TYPE_CHECKING:  # duckdb, polars and pyarrow load only when needed
 
     from .commit import Incoming, Runner
     from .registry import Registry
-
-# Bump when a Python model (estimate, site summary) computes differently: stores derived
-# before must then be brought up to date (`tandem upgrade`), as when a SQL model changes.
-DERIVATION_VERSION = "1"
-
-
-def derivation_version() -> str:
-    from .catalog import catalog_version
-
-    return f"{DERIVATION_VERSION}:{catalog_version()}"
-
 
 class StoreVersionError(UsageError):
     """The store was written by another release: `tandem upgrade` brings it up to date."""
@@ -146,12 +137,6 @@ class Store:
             os.replace(tmp, self.path / STORE_FILE)
 
     # -- writing ----------------------------------------------------------------------
-    def ingest(self, paths: Any, workers: int | None = None, progress: Any = None) -> Any:
-        """Store every new log under ``paths`` (files or folders); returns IngestReport."""
-        from ..ingest import ingest
-
-        return ingest(self, paths, workers=workers, progress=progress)
-
     @contextmanager
     def writer(self, upgrading: bool = False) -> Iterator[Store]:
         """Hold the store's write lock (waits up to ``lock_timeout`` seconds), creating
@@ -321,14 +306,3 @@ class Store:
             self.write_catalog()
         except Exception as e:  # a reader may hold it open; the views are unchanged
             self.catalog_warning = f"catalog.duckdb not rewritten: {' '.join(str(e).split())}"
-
-
-def to_frame(result: duckdb.DuckDBPyRelation | None) -> pl.DataFrame:
-    """A query result as a polars DataFrame (through Arrow, no copy of the columns)."""
-    import polars as pl
-
-    if result is None:  # a statement with no result set
-        return pl.DataFrame()
-    frame = pl.from_arrow(result.to_arrow_table())
-    assert isinstance(frame, pl.DataFrame)
-    return frame

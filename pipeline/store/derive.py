@@ -26,7 +26,7 @@ from typing import TYPE_CHECKING, Any
 
 import pyarrow as pa
 
-from ..schemas import DERIVED, table_schemas
+from ..read.schemas import DERIVED, table_schemas
 from .layout import FILE, LOT, raw_schema_file
 from .models import PYTHON_MODELS, SqlModel, dependency_order, load_models
 
@@ -47,7 +47,7 @@ class LotContext:
         self.con, self.lot = con, lot
 
     def sql(self, query: str, params: list[Any] | None = None) -> pl.DataFrame:
-        from .core import to_frame
+        from .frames import to_frame
 
         return to_frame(self.con.sql(query, params=params or None))
 
@@ -55,11 +55,43 @@ class LotContext:
 @dataclass(frozen=True)
 class PyModel:
     """A per-lot model computed in Python: reads the models in ``after``, returns one
-    table per name in ``outputs`` (schemas: ``pipeline.schemas.DERIVED``)."""
+    table per name in ``outputs`` (schemas: ``pipeline.read.schemas.DERIVED``)."""
 
     outputs: tuple[str, ...]
     after: tuple[str, ...]
     run: Callable[[LotContext], dict[str, pa.Table]]
+
+
+@dataclass(frozen=True)
+class FileTask:
+    """Derive the per-file models of one log (its staged raw tables) into ``out``."""
+
+    root: Path
+    file_id: str
+    tables: dict[str, Path]
+    out: Path
+    rules: Path | None
+
+
+@dataclass(frozen=True)
+class LotTask:
+    """Derive the per-lot models of one lot from its logs' per-file outputs into ``out``."""
+
+    root: Path
+    lot: str
+    per_file: dict[str, list[Path]]
+    raw: dict[str, list[Path]]
+    out: Path
+    rules: Path | None
+
+
+@dataclass
+class Runner:
+    """How derivation tasks run: in this process by default; a pool or a cluster maps
+    them elsewhere (each task only reads and writes files under the store)."""
+
+    files: Callable[[Sequence[FileTask]], list[dict[str, Path]]]
+    lots: Callable[[Sequence[LotTask]], list[dict[str, Path]]]
 
 
 def sql_str(s: str) -> str:
@@ -198,7 +230,7 @@ def derive_lot(root: Path, lot: str, per_file: Mapping[str, Sequence[str | Path]
     """The per-lot and Python models of ``lot``. ``per_file``: every per-file model -> its
     Parquet files (one per log of the lot, from ``derive_file``); ``raw``: raw table -> its
     Parquet files. Writes ``out/<model>/part-0.parquet``; returns model -> that file. A
-    Python model not given is written empty (typed by ``pipeline.schemas.DERIVED``)."""
+    Python model not given is written empty (typed by ``pipeline.read.schemas.DERIVED``)."""
     ms = _models()
     py = {name: m for m in python_models for name in m.outputs}
     done: dict[str, pa.Table] = {}
@@ -248,8 +280,6 @@ def empty_outputs(root: Path, out: Path) -> dict[str, Path]:
 
 def local_runner(python_models: Sequence[PyModel] = ()) -> Any:
     """Derivation tasks run one after another in this process."""
-    from .commit import Runner
-
     def files(tasks: Sequence[Any]) -> list[dict[str, Path]]:
         return [run_file_task(t) for t in tasks]
 
@@ -268,11 +298,11 @@ def _rules_table(path: Path | None) -> pa.Table | None:
 
 
 def run_file_task(task: Any) -> dict[str, Path]:
-    """A commit.FileTask, wherever it runs."""
+    """A FileTask, wherever it runs."""
     return derive_file(task.root, task.file_id, task.tables, task.out, _rules_table(task.rules))
 
 
 def run_lot_task(task: Any, python_models: Sequence[PyModel] = ()) -> dict[str, Path]:
-    """A commit.LotTask, wherever it runs."""
+    """A LotTask, wherever it runs."""
     return derive_lot(task.root, task.lot, task.per_file, task.raw, task.out, python_models,
                       _rules_table(task.rules))

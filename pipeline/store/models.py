@@ -11,7 +11,7 @@ A model's header says how it is materialised (as dbt's ``materialized`` config d
 
 Materialised models are written as Parquet under ``derived/`` and the catalog reads them
 back with a thin view, so a query never recomputes them. Models computed in Python (the
-estimate, the site summary) are declared in ``pipeline.schemas.DERIVED`` and given to the
+estimate, the site summary) are declared in ``pipeline.read.schemas.DERIVED`` and given to the
 derivation by the layer that owns them.
 """
 
@@ -28,7 +28,7 @@ from ..errors import StoreError
 
 SQL_DIR = Path(__file__).resolve().parent.parent.parent / "sql"
 KINDS = ("view", "file", "lot")
-# The per-lot models computed in Python (their schemas: pipeline.schemas.DERIVED).
+# The per-lot models computed in Python (their schemas: pipeline.read.schemas.DERIVED).
 PYTHON_MODELS = ("block_estimates", "site_summary", "timing_notes")
 _MARKER = re.compile(r"^--\s*materialized:\s*(\w+)\s*$", re.M)
 
@@ -93,7 +93,8 @@ def dependency_order(deps: Mapping[str, Iterable[str]]) -> list[str]:
 
 # Source files whose text decides the stored and derived schemas and the catalog's views
 # (read, never imported, so that checking a catalog's version costs no pyarrow import).
-_SCHEMA_SOURCES = ("schemas.py", "stdf/records.py", "stdf/columnar.py", "store/layout.py",
+_SCHEMA_SOURCES = ("read/schemas.py", "read/stdf/records.py", "read/stdf/columnar.py",
+                   "store/layout.py",
                    "store/catalog.py")
 
 

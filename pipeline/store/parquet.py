@@ -11,7 +11,7 @@ from typing import Any
 import pyarrow as pa
 import pyarrow.parquet as pq
 
-from ..schemas import table_schemas
+from ..read.schemas import table_schemas
 
 
 def write_parquet(table: pa.Table, path: Path, **options: Any) -> None:

@@ -23,7 +23,7 @@ import pyarrow as pa
 import pyarrow.compute as pc
 import pyarrow.parquet as pq
 
-from ..schemas import FILES
+from ..read.schemas import FILES
 from .layout import DERIVED, GEN, INDEX, LOT, LOT_FILES, REJECTED, SCHEMA_KEY, STATE, lot_from_key
 from .parquet import write_parquet
 

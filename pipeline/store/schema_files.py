@@ -12,7 +12,7 @@ import shutil
 import uuid
 from pathlib import Path
 
-from ..schemas import table_schemas
+from ..read.schemas import table_schemas
 from .layout import (
     LOT_FILES,
     META,
@@ -72,7 +72,7 @@ def _place(root: Path, files: dict[str, Path], copy: bool = False) -> None:
 
 
 def _cache_dir() -> Path | None:
-    from .core import derivation_version
+    from .catalog import derivation_version
 
     base = os.environ.get("XDG_CACHE_HOME") or os.path.join(os.path.expanduser("~"), ".cache")
     if not base or base.startswith("~"):

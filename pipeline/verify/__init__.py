@@ -4,9 +4,13 @@ the same units) compared per test, per unit and in time.
 
 ``queries`` holds every store read (the catalog views, one lot at a time); ``units``
 matches units and finds changed bins; ``compare`` the per-test statistics and verdicts
-(``stats`` the formulas); ``elapsed`` the realised against the projected saving;
-``render`` the terminal text. ``verify(store, baseline, candidate, ...)`` is the entry
-point; ``compare_lots`` the same on lots already read.
+(``stats`` the formulas); ``elapsed`` the realised against the projected saving.
+``verify(store, baseline, candidate, ...)`` is the entry point; ``compare_lots`` the same
+on lots already read. The terminal text is ``cli/verify_text``, the report section
+``report/verify``.
+
+May import: ``pipeline.plan``, ``pipeline.attribute``, ``pipeline.store``,
+``pipeline.read`` and the shared modules; never report, jobs or the CLI.
 """
 
 from __future__ import annotations

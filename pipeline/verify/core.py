@@ -105,7 +105,7 @@ def verify(store: Store, baseline: str, candidate: str, match: str = "part_id",
     finally:
         reader.close()
     if plan is None and blocks is not None:
-        from ..report.plan import make_plan
+        from ..plan import make_plan
 
         plan = make_plan(store, blocks, baseline)
     return compare_lots(b, c, match, plan, rules)
