@@ -23,34 +23,17 @@ from pathlib import Path
 import numpy as np
 
 sys.path.insert(0, str(Path(__file__).resolve().parent.parent))
+sys.path.insert(0, str(Path(__file__).resolve().parent))
 
-from pipeline.plan.model import BlockSpec, PlanSpec, PoolSpec, build_problem  # noqa: E402
+import plan_maps  # noqa: E402 - bench/ is not a package
+from pipeline.plan.model import PlanSpec, build_problem  # noqa: E402
 from pipeline.plan.solvers import solve_cpsat, solve_greedy  # noqa: E402
 
 OUT = Path(__file__).resolve().parent / "out"
 
 
 def instance(seed: int, n_blocks: int = 30, n_sites: int = 8) -> PlanSpec:
-    rng = np.random.default_rng(seed)
-    sites = tuple(range(1, n_sites + 1))
-    local = ("scan_port", "dc_unit", "clock_gen")
-    shared = {"rf_meter": PoolSpec(1, True), "hv_supply": PoolSpec(2, True)}
-    blocks = []
-    for k in range(n_blocks):
-        name = "contact" if k == 0 else f"b{k:02d}"
-        nominal = float(rng.uniform(5.0, 120.0))
-        times = {s: nominal * float(rng.normal(1.0, 0.02)) for s in sites}
-        if k == 0:
-            blocks.append(BlockSpec(name, times, 0.05, pinned=True))
-            continue
-        uses = tuple(r for r in local if rng.random() < 0.25)
-        if rng.random() < 0.12:
-            uses += (("rf_meter",) if rng.random() < 0.5 else ("hv_supply",))
-        earlier = [b.name for b in blocks[1:]]
-        after = ("contact",) + tuple(d for d in earlier if rng.random() < 0.04)
-        blocks.append(BlockSpec(name, times, round(float(rng.uniform(0.1, 1.4)), 2), uses,
-                                after))
-    return PlanSpec(sites, tuple(blocks), shared, power_w=3.0, parallel=3)
+    return plan_maps.large(seed, n_blocks, n_sites)
 
 
 def run(seed: int, time_limit: float, workers: int) -> dict[str, object]:

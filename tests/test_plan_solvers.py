@@ -4,8 +4,8 @@ References from outside the solvers:
 - brute force over every integer start vector (tiny cases) checks the exhaustive search;
 - the exhaustive search (tiny to small cases) checks CP-SAT's optimum and every bound;
 - ``check_schedule`` below reads the *spec* — blocks, sites, ``after``, pinned barriers,
-  resources, power and parallel limits — and never the compiled ``Problem``, so a mistake
-  in ``build_problem`` cannot hide in both.
+  resources, power (per site and per touchdown) and parallel limits — and never the
+  compiled ``Problem``, so a mistake in ``build_problem`` cannot hide in both.
 """
 
 from __future__ import annotations
@@ -72,6 +72,9 @@ def _load_problems(spec: PlanSpec, running: list[tuple[BlockSpec, int]], t: floa
             out.append(f"t={t}: site {s} draws more than {spec.power_w} W")
         if spec.parallel is not None and len(here) > spec.parallel:
             out.append(f"t={t}: site {s} runs more than {spec.parallel} blocks")
+    td = spec.touchdown_power_w
+    if td is not None and sum(b.power_w for b, _ in running) > td + 1e-9:
+        out.append(f"t={t}: the touchdown draws more than {td} W")
     names = {u for b, _ in running for u in b.uses}
     for u in names:
         res = spec.resources.get(u, PoolSpec())
@@ -103,7 +106,11 @@ def random_spec(seed: int, max_acts: int = 8) -> PlanSpec:
         watts = rng.choice([0.0, 0.5, 1.0, 1.5, 2.0])
         blocks.append(BlockSpec(f"b{k}", times, min(watts, power or watts), uses, after,
                                 pinned=rng.random() < 0.15))
-    return PlanSpec(sites, tuple(blocks), resources, power, rng.choice([None, 1, 2, 3]))
+    parallel = rng.choice([None, 1, 2, 3])
+    # drawn last, so the draws above (and the cases they made) stay as they were
+    touchdown = rng.choice([None, None, None, 3.0, 4.0])
+    return PlanSpec(sites, tuple(blocks), resources, power, parallel,
+                    touchdown_power_w=touchdown)
 
 
 SEEDS = range(40)

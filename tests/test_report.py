@@ -37,8 +37,8 @@ GOLDEN = Path(__file__).parent / "golden"
 REGEN = os.environ.get("TANDEM_REGEN_GOLDEN") == "1"
 LOT = "PF4-L0231"
 BLOCKS = SAMPLES / "blocks.toml"
-CHARTS = ("block_share", "touchdown_before_after", "savings_waterfall", "site_block_heatmap",
-          "part_time_by_site", "block_time_by_lot", "estimate_intervals")
+CHARTS = ("block_share", "touchdown_before_after", "savings_waterfall", "roadmap",
+          "site_block_heatmap", "part_time_by_site", "block_time_by_lot", "estimate_intervals")
 SCRIPT = "<script>alert(1)</script>"
 FORMULA = "=SUM(A1:A9)"
 
@@ -129,13 +129,32 @@ def test_gantt_title_and_rows_are_the_plans(report: ReportFiles, store: Ingested
                     assert min(a["end_ms"], b["end_ms"]) <= max(a["start_ms"], b["start_ms"]) + 1e-6
 
 
+def test_roadmap_chart_is_the_plans_roadmap(report: ReportFiles) -> None:
+    plan = json.loads(report.summary_json.read_text())["plan"]
+    steps = plan["roadmap"]
+    rows = [r for k, v in walk(report.specs["roadmap"]) if k == "values" for r in v]
+    got = sorted({(r["changes"], r["saving_ms"]) for r in rows})
+    want = [(0, 0.0)] + [(s["step"], round(plan["baseline_ms"] - s["touchdown_ms"], 3))
+                         for s in steps]
+    assert got == want
+    assert got[-1][1] == round(plan["baseline_ms"] - plan["planned_ms"], 3)  # ends at the plan
+    total = got[-1][1]
+    k80 = next(k for k, saved in got if saved >= 0.8 * total)
+    assert report.titles["roadmap"].startswith(f"{k80} of {len(steps)} changes give ")
+    md = report.summary_md.read_text()
+    assert "## Changes, in order" in md
+    for s in steps:  # the proposal lists every change, in order
+        assert f"\n{s['step']}. {s['change']}: saves " in md
+
+
 def test_every_quantitative_axis_names_its_unit(report: ReportFiles) -> None:
     for name, spec in report.specs.items():
         titled = [v for k, v in walk(spec) if k in ("x", "y", "color") and isinstance(v, dict)
                   and v.get("type") == "quantitative" and "title" in v]
         assert titled, name
         for enc in titled:
-            assert re.search(r"\((ms|%)\)$", enc["title"]), (name, enc["title"])
+            # a unit of time, a share, or a count of program changes
+            assert re.search(r"\((ms|%|changes)\)$", enc["title"]), (name, enc["title"])
 
 
 def test_one_palette_throughout(report: ReportFiles) -> None:

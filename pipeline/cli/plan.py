@@ -7,6 +7,7 @@ import json
 from pathlib import Path
 
 from ..errors import UsageError
+from ..plan.planner import DEFAULT_TIME_LIMIT_S
 from .common import Command, open_store, store_opt
 
 
@@ -22,9 +23,10 @@ def _plan_options(p: argparse.ArgumentParser) -> None:
                    help="the block map (TOML): resources, limits, blocks, what-ifs")
     _lot_opt(p, "plan")
     p.add_argument("--json", action="store_true", help="print the plan as JSON")
-    p.add_argument("--time-limit", type=float, default=10.0, metavar="S",
-                   help="seconds for the main solve (default 10); each candidate and what-if "
-                        "solve gets a fifth of it, at least 0.5 s")
+    p.add_argument("--time-limit", type=float, default=DEFAULT_TIME_LIMIT_S, metavar="S",
+                   help=f"seconds for the main solve (default {DEFAULT_TIME_LIMIT_S:g}); the "
+                        "roadmap, candidates and what-ifs then share half as long again (at "
+                        "least 1 s), each solve starting from the plan")
     p.add_argument("--percentile", choices=("mean", "p50", "p95"), default="mean",
                    help="which block time to plan with (default: mean)")
 

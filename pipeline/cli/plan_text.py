@@ -9,7 +9,8 @@ from ..plan.planner import AMDAHL_NOTE, CAUTIONS, PlanResult
 
 def render(r: PlanResult) -> str:
     """The plan for a terminal: summary, schedule, candidates, what-ifs, projection, cautions."""
-    out = _summary(r) + [""] + _schedule(r) + [""] + _candidates(r) + [""] + _whatifs(r)
+    out = _summary(r) + [""] + _schedule(r) + [""] + _roadmap(r) + [""] + _candidates(r)
+    out += [""] + _whatifs(r)
     out += [""] + _projection(r) + ["", "Cautions:"] + [f"  ! {c}" for c in CAUTIONS]
     return "\n".join(out) + "\n"
 
@@ -48,6 +49,23 @@ def _schedule(r: PlanResult) -> list[str]:
         out.append(f"  site {site}")
         rows = sorted((t0, t1, b) for b, s, t0, t1 in r.plan.schedule if s == site)
         out += [f"    {b:<{width}}  {t0:8.1f} - {t1:8.1f}" for t0, t1, b in rows]
+    return out
+
+
+def _roadmap(r: PlanResult) -> list[str]:
+    out = ["Roadmap: the plan as program changes, the best first (each saving given the "
+           "changes before it):"]
+    if not r.roadmap:
+        return out + ["  none: the plan runs no block beside another"]
+    base = r.baseline_ms
+    out.append(f"   0. the program as measured: touchdown {base:.1f} ms")
+    for st in r.roadmap:
+        pct = 100 * (base - st.touchdown_ms) / base if base else 0.0
+        out.append(f"  {st.step:2d}. {st.change()}")
+        held = f"; holds {', '.join(st.instruments)}" if st.instruments else ""
+        out.append(f"      saves {st.saving_ms:.1f} ms -> touchdown {st.touchdown_ms:.1f} ms "
+                   f"({pct:.1f} % in all); peak {st.peak_site_power_w:.2f} W on a site, "
+                   f"{st.peak_touchdown_power_w:.2f} W per touchdown{held}")
     return out
 
 

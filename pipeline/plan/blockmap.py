@@ -11,7 +11,9 @@ wrong and, where there is a fix, a hint::
 Contract tables (DESIGN.md); every key is optional unless marked *required*:
 
 - ``[limits]`` ``power_w`` (> 0, per site; left out = no power limit) and ``parallel``
-  (integer >= 1, per site; left out = no limit).
+  (integer >= 1, per site; left out = no limit). Our extension: ``touchdown_power_w``
+  (> 0: the power of the whole touchdown, every site drawing from the tester's supplies
+  together; left out = no such limit; no block may draw more on its own).
 - ``[resource.<name>]`` ``count`` (integer >= 1, default 1), ``shared`` (default false:
   each site has its own ``count``; true: one pool for the whole touchdown). A name in
   ``uses`` that no table declares is a per-site resource of count 1; it appears in
@@ -80,10 +82,11 @@ CHANGES = ("design", "program")
 
 @dataclass(frozen=True)
 class Limits:
-    """Per-site limits; None = no limit."""
+    """Per-site limits, and the touchdown's power; None = no limit."""
 
     power_w: float | None = None
     parallel: int | None = None
+    touchdown_power_w: float | None = None   # all sites together
 
 
 @dataclass(frozen=True)
@@ -254,7 +257,7 @@ def parse_block_map(text: str, source: str = "blocks.toml") -> BlockMap:
 
 _MISSING: Any = object()
 _TOP_KEYS = ("limits", "resource", "block", "economics", "whatif")
-_LIMIT_KEYS = ("power_w", "parallel")
+_LIMIT_KEYS = ("power_w", "parallel", "touchdown_power_w")
 _RESOURCE_KEYS = ("count", "shared")
 _BLOCK_KEYS = ("uses", "power_w", "after", "pinned", "tests", "names")
 _ECONOMICS_KEYS = ("units_per_year", "tester_cost_per_hour", "index_ms", "currency")
@@ -420,7 +423,8 @@ def _build(data: dict[str, Any], src: str) -> BlockMap:
 def _limits(t: _Table) -> Limits:
     return Limits(t.number("power_w", None, positive=True),
                   t.integer("parallel", None, minimum=1,
-                            hint="leave parallel out for no limit"))
+                            hint="leave parallel out for no limit"),
+                  t.number("touchdown_power_w", None, positive=True))
 
 
 def _resource(t: _Table, name: str) -> Resource:
@@ -445,6 +449,10 @@ def _check_power(t: _Table, key: str, power: float | None, limits: Limits, what:
     if power is not None and limits.power_w is not None and power > limits.power_w + 1e-9:
         t.fail(key, f"{what}too big for the power limit of {limits.power_w!r} W per site",
                hint)
+    td = limits.touchdown_power_w
+    if power is not None and td is not None and power > td + 1e-9:
+        t.fail(key, f"{what}too big for the touchdown's power limit of {td!r} W",
+               "lower it, or raise [limits] touchdown_power_w")
 
 
 def _ranges(t: _Table) -> tuple[tuple[int, int], ...]:
@@ -677,7 +685,8 @@ def _lines(table: str, values: Iterable[tuple[str, Any]]) -> list[str]:
 
 def _write(bm: BlockMap) -> str:
     lim = bm.limits
-    out = _lines("limits", [("power_w", lim.power_w), ("parallel", lim.parallel)])[1:]
+    out = _lines("limits", [("power_w", lim.power_w), ("parallel", lim.parallel),
+                            ("touchdown_power_w", lim.touchdown_power_w)])[1:]
     for r in bm.resources.values():
         if not r.implicit:
             out += _lines(f"resource.{_key(r.name)}", [("count", r.count), ("shared", r.shared)])

@@ -15,9 +15,13 @@ it sum to at most its capacity. Every constraint of the plan is one of those two
 - a per-site resource (``shared = false``): a pool of ``count`` on each site;
 - a touchdown-wide resource (``shared = true``): one pool of ``count`` across all sites;
 - the power limit: a pool per site, capacity ``limits.power_w``, each block drawing its
-  ``power_w``; the parallel limit: a pool per site, capacity ``limits.parallel``, each
-  block drawing 1;
-- a forbidden overlap (used to price a candidate): a pool of 1 per site over two blocks.
+  ``power_w``; the touchdown's power limit (``limits.touchdown_power_w``): one pool over
+  every site, each block on each site drawing its ``power_w``; the parallel limit: a
+  pool per site, capacity ``limits.parallel``, each block drawing 1;
+- a forbidden overlap (used to price a candidate): a pool of 1 per site over two blocks;
+- blocks kept serial (a step of the roadmap: the program not yet changed): on each site,
+  each of them starts once the one before it in program order has ended, as the
+  measured program runs them; the other blocks are free to start beside them.
 
 Time is integer microseconds and power integer milliwatts, fixed here once, so every
 solver sees the very same numbers and their optima can be compared exactly. A duration
@@ -76,6 +80,8 @@ class PlanSpec:
     power_w: float | None = None
     parallel: int | None = None
     forbidden: tuple[tuple[str, str], ...] = ()   # block pairs that may not overlap
+    touchdown_power_w: float | None = None        # all sites together
+    kept_serial: tuple[str, ...] = ()             # blocks that keep the program's chain
 
     def block(self, name: str) -> BlockSpec:
         for b in self.blocks:
@@ -113,7 +119,7 @@ class Pool:
     """A renewable resource: running activities' amounts sum to at most ``capacity``."""
 
     name: str
-    kind: str           # resource | shared | power | parallel | overlap
+    kind: str           # resource | shared | power | touchdown_power | parallel | overlap
     capacity: int
     demands: tuple[tuple[int, int], ...]   # (activity index, amount > 0)
 
@@ -234,15 +240,17 @@ def build_problem(spec: PlanSpec) -> Problem:
              for k, b in enumerate(blocks) for j, s in enumerate(sites)}
     acts = tuple(Activity(b.name, s, to_us(b.times_ms[s]), int(round(b.power_w * MW_PER_W)))
                  for b in blocks for s in sites)
-    return Problem(acts, tuple(_precedences(blocks, sites, index)),
+    return Problem(acts, tuple(_precedences(blocks, sites, index, set(spec.kept_serial))),
                    tuple(p for p in _pools(spec, blocks, index, acts) if _binding(p)))
 
 
 def _precedences(blocks: list[BlockSpec], sites: tuple[int, ...],
-                 index: Mapping[tuple[str, int], int]) -> Iterable[tuple[int, int]]:
+                 index: Mapping[tuple[str, int], int],
+                 kept: set[str]) -> Iterable[tuple[int, int]]:
     names = [b.name for b in blocks]
     rank = {n: k for k, n in enumerate(names)}
-    edges: set[tuple[str, str]] = set()
+    chain = [n for n in names if n in kept]
+    edges: set[tuple[str, str]] = set(zip(chain, chain[1:], strict=False))
     for k, b in enumerate(blocks):
         edges.update((d, b.name) for d in b.after if d in rank)
         if b.pinned:
@@ -268,6 +276,10 @@ def _pools(spec: PlanSpec, blocks: list[BlockSpec], index: Mapping[tuple[str, in
             for s in spec.sites:
                 yield Pool(f"{name}@site{s}", "resource", res.count,
                            tuple((index[(h, s)], 1) for h in holders))
+    if spec.touchdown_power_w is not None:
+        yield Pool("power@touchdown", "touchdown_power",
+                   int(round(spec.touchdown_power_w * MW_PER_W)),
+                   tuple((i, a.power_mw) for i, a in enumerate(acts) if a.power_mw > 0))
     for s in spec.sites:
         mine = [index[(b.name, s)] for b in blocks]
         if spec.power_w is not None:

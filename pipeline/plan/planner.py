@@ -10,6 +10,7 @@ them still holds (A after U after B: A waits for B).
 
 from __future__ import annotations
 
+import time
 from collections.abc import Callable
 from dataclasses import dataclass, field
 from typing import Any
@@ -19,10 +20,20 @@ from ..store import Store
 from .blockmap import UNASSIGNED, Alternative, BlockMap, WhatIf
 from .candidates import Candidate, price_overlaps
 from .measure import Measured, measure_lot
-from .model import BlockSpec, PlanSpec, PoolSpec, Problem, Solution, build_problem, make_solution
+from .model import (
+    US_PER_MS,
+    BlockSpec,
+    PlanSpec,
+    PoolSpec,
+    Problem,
+    Solution,
+    build_problem,
+    make_solution,
+)
 from .projection import AmdahlCheck, amdahl_inputs, throughput
+from .roadmap import Step, build_roadmap
 from .sgs import schedule_in_order
-from .solvers import solve
+from .solvers import solve, solve_warm
 from .whatifs import Variant, describe, touched, variants
 
 CAUTIONS = (
@@ -35,6 +46,8 @@ CAUTIONS = (
     "quality system and change control.",
 )
 
+
+DEFAULT_TIME_LIMIT_S = 4.0  # the main solve; half as long again for the roadmap and pricing
 
 AMDAHL_NOTE = ("Amdahl's law (Amdahl 1967) over each site's serial block time (serial_ms): "
                "f = share in the blocks the plan overlaps, s = their speed-up. The planned "
@@ -84,6 +97,7 @@ class PlanResult:
     throughput: dict[str, Any]
     missing_blocks: list[str]
     notes: list[str] = field(default_factory=list)
+    roadmap: list[Step] = field(default_factory=list)
 
     @property
     def baseline_ms(self) -> float:
@@ -120,6 +134,7 @@ class PlanResult:
             "lower_bound_ms": round(self.plan.lower_bound_ms, 3),
             "proven_optimal": self.plan.proven_optimal,
             "candidates": [c.to_json() for c in self.candidates],
+            "roadmap": [s.to_json(self.baseline_ms) for s in self.roadmap],
             "schedule": [{"block": b, "site": s, "start_ms": round(t0, 3), "end_ms": round(t1, 3)}
                          for b, s, t0, t1 in self.plan.schedule],
             "throughput": {**self.throughput, "amdahl": {
@@ -175,15 +190,16 @@ def build_spec(bm: BlockMap, m: Measured) -> tuple[PlanSpec, list[str], list[str
         notes.append(f"in the block map but not measured in lot {m.lot_id}: "
                      f"{', '.join(unrun)} (left out)")
     resources = {n: PoolSpec(r.count, r.shared) for n, r in bm.resources.items()}
-    return (PlanSpec(m.sites, tuple(blocks), resources, bm.limits.power_w, bm.limits.parallel),
-            missing, notes)
+    return (PlanSpec(m.sites, tuple(blocks), resources, bm.limits.power_w, bm.limits.parallel,
+                     touchdown_power_w=bm.limits.touchdown_power_w), missing, notes)
 
 
 # ------------------------------------------------------------------ the plan
 
 
 def plan_lot(store: Store, bm: BlockMap, lot: str | None = None, percentile: str = "mean",
-             time_limit_s: float = 10.0, **options: Any) -> PlanResult:
+             time_limit_s: float = DEFAULT_TIME_LIMIT_S, **options: Any) -> PlanResult:
+    """Measure ``lot`` in the store, then ``plan`` it with the block map."""
     return plan(bm, measure_lot(store, lot, percentile), time_limit_s, **options)
 
 
@@ -209,21 +225,42 @@ def baseline(spec: PlanSpec) -> Solution:
     return make_solution(problem, "feasible", starts, 0, "serial SGS", 0.0)
 
 
-def plan(bm: BlockMap, m: Measured, time_limit_s: float = 10.0, backend: str = "cpsat",
-         max_candidates: int = 12) -> PlanResult:
+def plan(bm: BlockMap, m: Measured, time_limit_s: float = DEFAULT_TIME_LIMIT_S,
+         backend: str = "cpsat", max_candidates: int = 12) -> PlanResult:
+    """Baseline, plan, roadmap, candidates, what-ifs and projection of one touchdown.
+    ``time_limit_s`` bounds the main solve; the roadmap, then the candidates' and the
+    what-ifs' solves share half as long again after it (at least 1 s; each starts from
+    the plan's schedule and stops at the plan's bound; when the budget is spent, what is
+    left is priced from that start alone, and marked not proven)."""
     spec, missing, notes = build_spec(bm, m)
-    aux_limit = max(0.5, time_limit_s / 5)
-
-    def solve_aux(p: Problem) -> Solution:
-        return solve(p, aux_limit, backend)
-
     base = baseline(spec)
     problem = build_problem(spec)
     sol = solve(problem, time_limit_s, backend)
     if sol.makespan_ms is None:
         raise ConfigError(f"{bm.source}: no schedule satisfies the block map "
                           f"({problem.infeasible_reason() or sol.status})")
-    candidates, pairs = price_overlaps(spec, problem, sol, solve_aux, max_candidates)
+    after = max(time_limit_s / 2, 1.0)  # the roadmap and the pricing, together
+    deadline = time.perf_counter() + after
+    road = build_roadmap(spec, problem, base, sol, budget_s=after / 2)
+    if road and road[-1].touchdown_ms < (sol.makespan_ms or 0.0) - 1e-9:
+        sol = _adopt(problem, road[-1], sol)  # the roadmap found a shorter schedule
+    starts = {(a.block, a.site): t for a, t in zip(problem.activities, sol.starts_us,
+                                                  strict=True)}
+    plan_bound = int(round(sol.lower_bound_ms * US_PER_MS))
+    aux_limit = max(0.2, time_limit_s / 10)
+
+    def left() -> float:
+        return deadline - time.perf_counter()
+
+    def price(p: Problem) -> Solution:  # a restriction of the plan: never below its bound
+        more = left() > 0.05  # past the budget: the start alone prices it, not proven
+        return solve_warm(p, starts, min(aux_limit, max(left(), 0.0)), plan_bound, backend,
+                          search=more, rounds=3 if more else 1)
+
+    def solve_aux(p: Problem) -> Solution:  # a what-if: may beat the plan
+        return solve_warm(p, starts, max(min(aux_limit * 2, left()), 0.3), 0, backend)
+
+    candidates, pairs = price_overlaps(spec, problem, sol, price, max_candidates)
     if pairs > max_candidates:
         notes.append(f"{pairs} block pairs overlap in the plan; the {max_candidates} that "
                      "overlap longest are priced")
@@ -241,7 +278,18 @@ def plan(bm: BlockMap, m: Measured, time_limit_s: float = 10.0, backend: str = "
                       else base_ms - combined.makespan_ms)
     return PlanResult(m, spec, problem, base, sol, candidates, pairs, results, combined,
                       amdahl_inputs(spec, problem, sol, {}, set()), proj, missing,
-                      list(m.notes) + notes)
+                      list(m.notes) + notes, road)
+
+
+def _adopt(problem: Problem, step: Step, sol: Solution) -> Solution:
+    """The last roadmap step's schedule as the plan (it is feasible for the plan's
+    problem, a relaxation of every step's); the bound stays the solver's."""
+    order = {(a.block, a.site): k for k, a in enumerate(problem.activities)}
+    starts = [0] * len(problem.activities)
+    for b, s, t0, _ in step.schedule:
+        starts[order[(b, s)]] = int(round(t0 * US_PER_MS))
+    return make_solution(problem, "feasible", starts, int(round(sol.lower_bound_ms
+                         * US_PER_MS)), f"{sol.solver} + roadmap", sol.wall_s)
 
 
 def _whatifs(bm: BlockMap, spec: PlanSpec, plan: Solution,

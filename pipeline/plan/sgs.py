@@ -12,6 +12,7 @@ another), and among the active schedules there is always one of least makespan.
 
 from __future__ import annotations
 
+import heapq
 from collections.abc import Iterable, Sequence
 
 from .model import Problem
@@ -40,29 +41,37 @@ class SerialSGS:
             assert s is not None, "a predecessor is not placed yet"
             est = max(est, s + self.duration[p])
         pools = self.problem.pools_of[i]
-        if not pools:
-            return est
         d = self.duration[i]
-        # The earliest feasible start is est or the end of some placed activity: load
-        # only ever drops at an end.
-        times = sorted({est} | {e for p, _ in pools for _, e, _ in self.busy[p] if e > est})
-        for t in times:
-            if all(self._fits(p, q, t, t + d) for p, q in pools):
-                return t
-        raise AssertionError("unreachable: after the last end every pool is empty")
+        t, moved = est, True
+        while moved:  # every pool in turn, until one start suits them all
+            moved = False
+            for p, q in pools:
+                fit = self._fit_from(p, q, t, d)
+                if fit > t:
+                    t, moved = fit, True
+        return t
 
-    def _fits(self, p: int, q: int, t0: int, t1: int) -> bool:
+    def _fit_from(self, p: int, q: int, t: int, d: int) -> int:
+        """The earliest start >= t at which pool p has room for q over a duration d.
+        Where the load is too high at a point x of [t, t + d), no start before the
+        earliest end of the activities running at x can fit (the load stays that high
+        until then), so the search jumps there."""
         room = self.capacity[p] - q
         if room < 0:
-            return False
-        over = [(s, e, a) for s, e, a in self.busy[p] if s < t1 and e > t0]
-        if sum(a for _, _, a in over) <= room:
-            return True
-        # The load on [t0, t1) is piecewise constant and only rises at a start.
-        for x in [t0] + [s for s, _, _ in over if s > t0]:
-            if sum(a for s, e, a in over if s <= x < e) > room:
-                return False
-        return True
+            raise AssertionError("unreachable: a demand above its pool's capacity")
+        busy = self.busy[p]
+        while True:
+            over = [(s, e, a) for s, e, a in busy if s < t + d and e > t]
+            if sum(a for _, _, a in over) <= room:
+                return t
+            # The load on [t, t + d) is piecewise constant and only rises at a start.
+            for x in [t] + sorted(s for s, _, _ in over if s > t):
+                here = [(e, a) for s, e, a in over if s <= x < e]
+                if sum(a for _, a in here) > room:
+                    t = min(e for e, _ in here)
+                    break
+            else:
+                return t
 
     def place(self, i: int, t: int) -> None:
         self.start[i] = t
@@ -77,6 +86,23 @@ class SerialSGS:
     def starts(self) -> list[int]:
         assert all(s is not None for s in self.start)
         return [s for s in self.start if s is not None]
+
+
+def schedule_by_priority(problem: Problem, priority: Sequence[float]) -> list[int]:
+    """Serial SGS that takes, at each step, the ready activity (every predecessor
+    placed) of least priority, the lower index on ties; the starts."""
+    waiting = [len(set(p)) for p in problem.predecessors]
+    ready = [(priority[i], i) for i, w in enumerate(waiting) if w == 0]
+    heapq.heapify(ready)
+    sgs = SerialSGS(problem)
+    while ready:
+        _, i = heapq.heappop(ready)
+        sgs.place(i, sgs.earliest(i))
+        for j in set(problem.successors[i]):
+            waiting[j] -= 1
+            if waiting[j] == 0:
+                heapq.heappush(ready, (priority[j], j))
+    return sgs.starts()
 
 
 def schedule_in_order(problem: Problem, order: Iterable[int]) -> list[int]:

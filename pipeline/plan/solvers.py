@@ -22,10 +22,10 @@ from __future__ import annotations
 
 import math
 import time
-from collections.abc import Callable
+from collections.abc import Callable, Mapping, Sequence
 
 from .model import Problem, Solution, heads_tails, lower_bound_us, make_solution
-from .sgs import SerialSGS, justify, left_shift
+from .sgs import SerialSGS, justify, left_shift, schedule_by_priority
 
 Solver = Callable[[Problem, float], Solution]
 
@@ -57,13 +57,7 @@ def greedy_starts(problem: Problem) -> list[int]:
     best: list[int] | None = None
     best_ms = math.inf
     for prio in _priority_rules(problem):
-        sgs = SerialSGS(problem)
-        left = set(range(len(problem.activities)))
-        while left:
-            i = min((j for j in left if sgs.ready(j)), key=lambda j: (prio[j], j))
-            sgs.place(i, sgs.earliest(i))
-            left.discard(i)
-        starts = justify(problem, sgs.starts())
+        starts = justify(problem, schedule_by_priority(problem, prio))
         ms = max((s + a.duration_us for s, a in zip(starts, problem.activities, strict=True)),
                  default=0)
         if ms < best_ms:
@@ -133,7 +127,12 @@ def solve_exhaustive(problem: Problem, time_limit_s: float = 60.0) -> Solution:
 
 
 def solve_cpsat(problem: Problem, time_limit_s: float = 10.0, workers: int = 2,
-                seed: int = 0) -> Solution:
+                seed: int = 0, hint: Sequence[int] | None = None,
+                known_bound_us: int = 0, gap: float = 0.0) -> Solution:
+    """CP-SAT. ``hint``: a feasible schedule to start from (default: the greedy one);
+    ``known_bound_us``: a makespan no schedule can beat, known from outside (a pricing
+    solve of a restricted plan cannot beat the plan's bound), so a solve stops as soon as
+    it meets it; ``gap``: stop once within this relative gap of the bound (0: prove)."""
     from ortools.sat.python import cp_model
 
     t0 = time.perf_counter()
@@ -141,9 +140,12 @@ def solve_cpsat(problem: Problem, time_limit_s: float = 10.0, workers: int = 2,
     if bad:
         return bad
     acts = problem.activities
-    hint = greedy_starts(problem)
+    hint = list(hint) if hint is not None else greedy_starts(problem)
     horizon = max((s + a.duration_us for s, a in zip(hint, acts, strict=True)), default=0)
-    bound = lower_bound_us(problem)
+    bound = max(lower_bound_us(problem), known_bound_us)
+    if hint and horizon <= bound:  # the start already meets the bound: nothing to search
+        return make_solution(problem, "optimal", hint, bound, "cpsat (start meets bound)",
+                             time.perf_counter() - t0)
     head, tail = heads_tails(problem)
     m = cp_model.CpModel()
     start = [m.new_int_var(head[i], horizon - a.duration_us - tail[i], f"s{i}")
@@ -176,6 +178,8 @@ def solve_cpsat(problem: Problem, time_limit_s: float = 10.0, workers: int = 2,
     # timing, as long as the solve ends before the time limit.
     solver.parameters.interleave_search = workers > 1
     solver.parameters.random_seed = seed
+    if gap > 0:
+        solver.parameters.relative_gap_limit = gap
     code = solver.solve(m)
     wall = time.perf_counter() - t0
     if code == cp_model.INFEASIBLE:  # cannot happen when the hint is valid; kept honest
@@ -184,8 +188,42 @@ def solve_cpsat(problem: Problem, time_limit_s: float = 10.0, workers: int = 2,
         return Solution("unknown", None, bound / 1000, False, (), "cpsat", wall)
     starts = left_shift(problem, [solver.value(v) for v in start])
     bound = max(bound, math.ceil(solver.best_objective_bound - 1e-6))
-    status = "optimal" if code == cp_model.OPTIMAL else "feasible"
+    # With a gap limit CP-SAT says OPTIMAL once within the gap: then only the bound proves.
+    status = "optimal" if code == cp_model.OPTIMAL and gap <= 0 else "feasible"
     return make_solution(problem, status, starts, bound, "cpsat", wall)
+
+
+def solve_warm(problem: Problem, plan_starts: Mapping[tuple[str, int], int],
+               time_limit_s: float, known_bound_us: int = 0, backend: str = "cpsat",
+               search: bool = True, rounds: int = 3) -> Solution:
+    """A variant of a solved plan (an overlap forbidden, a what-if applied), solved from
+    the plan's shape: serial SGS taking activities in the order the plan starts them
+    (unknown ones at their earliest start), justified, is the start. When it meets the
+    known bound (the plan's, which no restriction of it can beat) it is the answer,
+    proven; else the backend searches on from it, stopping when it meets that bound
+    (``search=False``: the start is the answer, not proven). ``rounds``: of
+    justification."""
+    t0 = time.perf_counter()
+    bad = _infeasible(problem, "warm", t0)
+    if bad:
+        return bad
+    head, _ = heads_tails(problem)
+    prio = [float(plan_starts.get((a.block, a.site), head[i]))
+            for i, a in enumerate(problem.activities)]
+    start = justify(problem, schedule_by_priority(problem, prio), rounds=rounds)
+    bound = max(lower_bound_us(problem), known_bound_us)
+    span = max((s + a.duration_us for s, a in zip(start, problem.activities, strict=True)),
+               default=0)
+    if span <= bound or not search:
+        return make_solution(problem, "feasible", start, bound, "warm SGS",
+                             time.perf_counter() - t0)
+    if backend != "cpsat":
+        return SOLVERS[backend](problem, time_limit_s)
+    sol = solve_cpsat(problem, time_limit_s, hint=start, known_bound_us=bound)
+    if sol.makespan_ms is None:  # CP-SAT found nothing in time: the start stands
+        return make_solution(problem, "feasible", start, bound, "warm SGS",
+                             time.perf_counter() - t0)
+    return sol
 
 
 SOLVERS: dict[str, Solver] = {"cpsat": solve_cpsat, "greedy": solve_greedy,

@@ -32,6 +32,7 @@ UNATTRIBUTED = "(unattributed)"
 HEADINGS = {  # section headings in report.html; the chart's own title is the finding
     "block_share": "Where the time goes", "touchdown_before_after": "One touchdown, before "
     "and after", "savings_waterfall": "From the baseline to the plan",
+    "roadmap": "The roadmap: saving against the number of changes",
     "site_block_heatmap": "Sites against blocks", "part_time_by_site": "Part time per site",
     "block_time_by_lot": "Across lots", "estimate_intervals": "Estimated block times",
     "verify_shift_spread": "Which tests moved", "verify_distributions": "Before and after",
@@ -373,6 +374,37 @@ def savings_waterfall(data: ReportData, plan: PlanView) -> Figure:
                   chart)
 
 
+def roadmap_curve(data: ReportData, plan: PlanView) -> Figure | None:
+    """Cumulative saving against the number of program changes, in the roadmap's order."""
+    points = plan.roadmap_curve()
+    if len(points) < 2:
+        return None
+    total = points[-1]["saving_ms"]
+    n = len(points) - 1
+    # the fewest changes that reach 80 % of the plan's saving (the Pareto reading)
+    k80 = next((p["changes"] for p in points if total > 0 and p["saving_ms"] >= 0.8 * total), n)
+    title = (f"{k80} of {n} change{'s' if n != 1 else ''} give "
+             f"{_pct(100 * points[k80]['saving_ms'] / total if total else 0)} of the plan's "
+             f"saving" if total > 0 else "The roadmap saves nothing")
+    rows = _round_rows(points)
+    base = alt.Chart(alt.Data(values=rows)).encode(
+        x=alt.X("changes:Q", title="program changes adopted, best first (changes)",
+                scale=alt.Scale(domain=[0, n]), axis=alt.Axis(tickMinStep=1, format="d")),
+        y=alt.Y("saving_ms:Q", title="saving per touchdown (ms)"),
+        tooltip=[alt.Tooltip("changes:Q", title="changes"), alt.Tooltip("change:N"),
+                 alt.Tooltip("saving_ms:Q", title="saving (ms)", format=".1f"),
+                 alt.Tooltip("saving_pct:Q", title="saving (%)", format=".1f"),
+                 alt.Tooltip("touchdown_ms:Q", title="touchdown (ms)", format=".1f")])
+    line = base.mark_line(color=TEAL, interpolate="step-after")
+    dots = base.mark_point(filled=True, color=TEAL, size=50)
+    chart = alt.layer(line, dots).properties(
+        width=WIDTH, height=260,
+        title=chart_title(title, f"Lot {plan.lot_id}: each step one program change, its "
+                          "saving given the ones before it; the last step is the plan"))
+    return Figure("roadmap", title, "The plan as program changes adopted one at a time, "
+                  "the best first: the saving per touchdown after each change.", chart)
+
+
 def _round_rows(rows: list[dict[str, Any]]) -> list[dict[str, Any]]:
     return [{k: round(v, 3) if isinstance(v, float) else v for k, v in r.items()}
             for r in rows]
@@ -380,8 +412,8 @@ def _round_rows(rows: list[dict[str, Any]]) -> list[dict[str, Any]]:
 
 ATTRIBUTION: tuple[Callable[[ReportData], Figure | None], ...] = (
     pareto, site_heatmap, part_times, lots_trend, estimate_ci)
-PLANNING: tuple[Callable[[ReportData, PlanView], Figure], ...] = (
-    touchdown_gantt, savings_waterfall)
+PLANNING: tuple[Callable[[ReportData, PlanView], Figure | None], ...] = (
+    touchdown_gantt, savings_waterfall, roadmap_curve)
 
 
 def figures(data: ReportData, plan: PlanView | None) -> list[Figure]:

@@ -109,6 +109,19 @@ def candidates_table(plan: PlanView) -> Table:
                  ["rank", "blocks", "saving_ms", "overlap_ms", "change", "source", "why"], rows)
 
 
+def roadmap_table(plan: PlanView) -> Table:
+    """The roadmap, one row per program change, with the touchdown after it."""
+    base = plan.baseline_ms
+    rows = [[r["step"], r.get("change") or ", ".join(r["blocks"]), _r(r["saving_ms"]),
+             _r(r["touchdown_ms"]), _r(100 * (base - r["touchdown_ms"]) / base) if base else None,
+             ", ".join(r.get("instruments") or []), _r(r.get("peak_site_power_w"))]
+            for r in plan.roadmap]
+    return Table("roadmap", "The roadmap: program changes in order, each priced given the "
+                 "ones before it", ["step", "change", "saving_ms", "touchdown_ms",
+                                    "cumulative_saving_pct", "instruments", "peak_site_power_w"],
+                 rows)
+
+
 def whatifs_table(plan: PlanView) -> Table:
     rows = [[w.get("name"), w.get("kind"), w.get("change"), _r(w.get("saving_ms")),
              w.get("detail") or w.get("note") or "", w.get("skipped") or ""]
@@ -139,7 +152,7 @@ def tables(data: ReportData, plan: PlanView | None) -> list[Table]:
            frame_table(data.estimates, "estimates", "Estimated block times with 95 % "
                        "intervals")]
     if plan is not None:
-        out += [candidates_table(plan), whatifs_table(plan),
+        out += [roadmap_table(plan), candidates_table(plan), whatifs_table(plan),
                 schedule_table(plan.baseline_schedule, "schedule_before",
                                "Baseline schedule of one touchdown"),
                 schedule_table(plan.schedule, "schedule_after", "Planned schedule")]

@@ -141,6 +141,24 @@ class PlanView:
             steps.append(_total("plan + what-ifs together", float(combined["planned_ms"])))
         return steps
 
+    @property
+    def roadmap(self) -> list[dict[str, Any]]:
+        """The plan's steps (program changes in order), as the planner wrote them."""
+        return [r for r in self.raw.get("roadmap") or [] if isinstance(r, dict)]
+
+    def roadmap_curve(self) -> list[dict[str, Any]]:
+        """Point k: the touchdown and the cumulative saving after the first k changes
+        (k = 0: the baseline)."""
+        out = [{"changes": 0, "touchdown_ms": self.baseline_ms, "saving_ms": 0.0,
+                "saving_pct": 0.0, "change": "the program as measured"}]
+        for r in self.roadmap:
+            td = float(r["touchdown_ms"])
+            saved = self.baseline_ms - td
+            out.append({"changes": int(r["step"]), "touchdown_ms": td, "saving_ms": saved,
+                        "saving_pct": 100 * saved / self.baseline_ms if self.baseline_ms
+                        else 0.0, "change": str(r.get("change") or ", ".join(r["blocks"]))})
+        return out
+
     # -- the projection --------------------------------------------------------------------
     def projection(self) -> dict[str, Any]:
         """before / after / saved (and with_whatifs) from the throughput block, whichever

@@ -117,6 +117,7 @@ def _plan(plan: PlanView) -> list[str]:
            f"({num(plan.saving_pct, 1, '%')}), "
            + ("proven optimal." if plan.proven_optimal else
               f"not proven optimal (lower bound {num(plan.lower_bound_ms, 1, 'ms')})."), "",
+           *_roadmap(plan),
            "## Projected saving", "",
            "| | before | after | saved |", "|---|---:|---:|---:|"]
     before, after, saved = p.get("before", {}), p.get("after", {}), p.get("saved", {})
@@ -149,6 +150,24 @@ def _plan(plan: PlanView) -> list[str]:
             out.append(f"\n{len(t.rows) - TOP_CANDIDATES} more in `tables/candidates.csv`.")
         out += ["", "change: *program* = the test program alone changes; *design* = the "
                 "device or load board changes too (a what-if)."]
+    return out + [""]
+
+
+def _roadmap(plan: PlanView) -> list[str]:
+    """The proposal's list of changes: the roadmap, one numbered line per change."""
+    steps = plan.roadmap
+    if not steps:
+        return []
+    out = ["## Changes, in order", "",
+           "Each change is one edit of the test program, priced given the ones before it; "
+           "adopt them in this order, each with its own correlation run and sign-off.", ""]
+    for r in steps:
+        held = ", ".join(r.get("instruments") or [])
+        out.append(f"{r['step']}. {md_text(r.get('change') or ', '.join(r['blocks']))}: saves "
+                   f"{num(r['saving_ms'], 1, 'ms')}, touchdown {num(r['touchdown_ms'], 1, 'ms')}"
+                   + (f"; holds {md_text(held)}" if held else "")
+                   + (f"; peak {num(r.get('peak_site_power_w'), 2, 'W')} on a site"
+                      if r.get("peak_site_power_w") is not None else "") + ".")
     return out + [""]
 
 
