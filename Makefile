@@ -5,7 +5,7 @@ VENV   := .venv
 PY     := $(VENV)/bin/python
 STAMP  := $(VENV)/.installed
 
-.PHONY: install demo test bench bench-store bench-cluster fuzz lint golden clean
+.PHONY: install demo test bench bench-store bench-cluster bench-plan fuzz lint golden clean
 
 # The compiled decoder (pipeline/read/stdf/_*.c) is rebuilt whenever its sources change; when
 # it cannot be built (no C compiler), the install goes on and says so in one line.
@@ -35,6 +35,10 @@ bench-store: $(STAMP)
 
 bench-cluster: $(STAMP)
 	$(PY) bench/bench_cluster.py
+
+bench-plan: $(STAMP)
+	$(PY) bench/bench_plan.py $(BENCH_ARGS)
+	$(PY) bench/bench_plan.py --maps
 
 fuzz: $(STAMP)
 	$(PY) -m pytest -q -m fuzz

@@ -22,7 +22,7 @@ from pipeline.report.verify import VerifyFiles, write_verify_report
 from pipeline.verify import CAUTIONS as VERIFY_CAUTIONS
 from pipeline.verify import Verification, verify
 from tests.conftest import SAMPLES, CliResult, Ingested
-from tests.test_report import GOLDEN, check_golden, console_errors, open_in_browser
+from tests.test_report import CHARTS, GOLDEN, check_golden, console_errors, open_in_browser
 
 BASELINE, CANDIDATE = "PF4-L0231", "PF4-L0236"
 VERIFY_CHARTS = ("verify_shift_spread", "verify_distributions", "verify_time")
@@ -109,7 +109,7 @@ def test_the_report_carries_a_verification_section(sample_store: Ingested,
                      lot=BASELINE, plan=plan, verification=verification)
     text = r.html.read_text(encoding="utf-8")
     assert 'id="verification"' in text
-    assert text.count('type="application/json" data-chart=') == 7 + len(VERIFY_CHARTS)
+    assert text.count('type="application/json" data-chart=') == len(CHARTS) + len(VERIFY_CHARTS)
     ids = re.findall(r'data-chart="(chart-\d+)"', text)
     assert len(ids) == len(set(ids))       # chart ids go on after the report's own
     assert set(VERIFY_CHARTS) <= set(r.specs)
@@ -121,7 +121,7 @@ def test_the_report_carries_a_verification_section(sample_store: Ingested,
     assert {"verify_tests.csv", "verify_blocks.csv"} <= {p.name for p in r.tables}
     dom, log = open_in_browser(r.html, tmp_path)
     assert console_errors(log) == []
-    assert f'data-charts-rendered="{7 + len(VERIFY_CHARTS)}"' in dom
+    assert f'data-charts-rendered="{len(CHARTS) + len(VERIFY_CHARTS)}"' in dom
 
 
 def test_verify_out_writes_the_page(cli: Callable[..., CliResult], sample_store: Ingested,

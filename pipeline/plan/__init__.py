@@ -1,7 +1,8 @@
 """The planner: which serial blocks of a touchdown could run concurrently.
 
 ``model`` (plain objects) -> ``solvers`` (CP-SAT, greedy, exhaustive; one interface) ->
-``planner`` (baseline, plan, candidates, what-ifs, projection; the JSON of ``tandem plan``).
+``planner`` (baseline, plan, roadmap, candidates, what-ifs, projection; the JSON of
+``tandem plan``); ``roadmap`` the plan as program changes adopted one at a time.
 ``blockmap`` reads and checks the block map (TOML); ``measure`` reads a lot from the
 store; ``draft`` writes a starting block map.
 
