@@ -1,7 +1,10 @@
 """Solvers of the plan's ``Problem``; each is ``solve(problem, time_limit_s) -> Solution``.
 
-- ``cpsat``: OR-Tools CP-SAT, exact given time. Fixed-size interval variables; a pool of
-  capacity 1 whose members each take 1 becomes NoOverlap, any other pool Cumulative;
+- ``cpsat``: OR-Tools CP-SAT, exact given time (``solve_cpsat_staged``: when shared pools
+  couple the sites, a middle stage searches with the sites taking each shared block in
+  site order, which breaks their near-symmetry, then the full model goes on from it).
+  Fixed-size interval variables; a pool of capacity 1 whose members each take 1 becomes
+  NoOverlap, any other pool Cumulative;
   precedences are linear. Deterministic: a fixed seed and CP-SAT's interleaved search
   (its portfolio run in fixed batches over a fixed number of workers, 2 by default), so
   the same input gives the same schedule whenever the solve ends before the time limit;
@@ -193,6 +196,54 @@ def solve_cpsat(problem: Problem, time_limit_s: float = 10.0, workers: int = 2,
     return make_solution(problem, status, starts, bound, "cpsat", wall)
 
 
+def site_ordered(problem: Problem) -> Problem:
+    """A restriction of ``problem`` for the search only: on every touchdown-wide pool,
+    the sites take each block in site order (each one's turn ends before the next site's
+    begins). Sites are near copies of one another, so this removes most of the
+    equivalent orders a search would otherwise try; a schedule of it is a schedule of
+    the problem, but its bound is not a bound of the problem."""
+    extra: list[tuple[int, int]] = []
+    acts = problem.activities
+    for pool in problem.pools:
+        if pool.kind != "shared":
+            continue
+        by_block: dict[str, list[int]] = {}
+        for i, _ in pool.demands:
+            by_block.setdefault(acts[i].block, []).append(i)
+        for ids in by_block.values():
+            ids.sort(key=lambda i: acts[i].site)
+            extra += list(zip(ids, ids[1:], strict=False))
+    return Problem(acts, problem.precedences + tuple(dict.fromkeys(extra)), problem.pools)
+
+
+def solve_cpsat_staged(problem: Problem, time_limit_s: float = 10.0, workers: int = 2,
+                       seed: int = 0) -> Solution:
+    """CP-SAT in three stages when touchdown-wide pools couple the sites: the problem
+    for half the time (the answer, if it is proven); then ``site_ordered`` from that
+    schedule for a quarter; then the problem again from the better of the two for the
+    rest, knowing the first bound. The best schedule of the three, the larger bound.
+    Without shared pools, or when the first stage proves its answer, one stage."""
+    t0 = time.perf_counter()
+    if not any(p.kind == "shared" for p in problem.pools):
+        return solve_cpsat(problem, time_limit_s, workers, seed)
+    first = solve_cpsat(problem, time_limit_s / 2, workers, seed)
+    if first.makespan_ms is None or first.proven_optimal:
+        return first
+    ordered = solve_cpsat(site_ordered(problem), time_limit_s / 4, workers, seed,
+                          hint=first.starts_us)
+    start = ordered if ordered.makespan_ms is not None and \
+        ordered.makespan_ms < first.makespan_ms else first
+    bound_us = int(round(first.lower_bound_ms * 1000))
+    left = max(time_limit_s - (time.perf_counter() - t0), 0.05)
+    last = solve_cpsat(problem, left, workers, seed, hint=start.starts_us,
+                       known_bound_us=bound_us)
+    best = min((s for s in (first, ordered, last) if s.makespan_ms is not None),
+               key=lambda s: s.makespan_ms or 0.0)
+    bound_us = max(bound_us, int(round(last.lower_bound_ms * 1000)))
+    return make_solution(problem, "feasible", best.starts_us, bound_us, "cpsat (staged)",
+                         time.perf_counter() - t0)
+
+
 def solve_warm(problem: Problem, plan_starts: Mapping[tuple[str, int], int],
                time_limit_s: float, known_bound_us: int = 0, backend: str = "cpsat",
                search: bool = True, rounds: int = 3) -> Solution:
@@ -226,7 +277,7 @@ def solve_warm(problem: Problem, plan_starts: Mapping[tuple[str, int], int],
     return sol
 
 
-SOLVERS: dict[str, Solver] = {"cpsat": solve_cpsat, "greedy": solve_greedy,
+SOLVERS: dict[str, Solver] = {"cpsat": solve_cpsat_staged, "greedy": solve_greedy,
                               "exhaustive": solve_exhaustive}
 
 
