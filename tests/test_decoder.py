@@ -38,6 +38,7 @@ from pipeline.read.stdf.decoder import Decoder, Limits
 from pipeline.read.stdf.records import BY_NAME, Record
 from pipeline.read.stdf.reference import decode_stream
 
+from .conftest import SAMPLES
 from .paths import assert_same, collect
 from .stdf_vectors import UNKNOWN, VECTORS, Vector, by_id, stream
 
@@ -1126,3 +1127,27 @@ def test_mutated_streams_decode_or_raise_format_error(endian: str,
     assert dec.records == sum(v for k, v in dec.counts.items()
                               if k not in ("eps_without_bps", "prr_without_pir"))
     assert len(rows(t, "parts", "rec_index")) == dec.counts["PRR"]
+
+
+def test_a_lingering_view_of_the_held_bytes_does_not_stop_the_decoder(each_path: str) -> None:
+    # Bug seen once on a cluster worker: close() raised BufferError ("Existing exports of
+    # data: object cannot be re-sized") when something still viewed the bytes held over
+    # between batches (an object the garbage collector had not freed yet). The decoder
+    # must not resize a buffer it has handed out; here a view is held on purpose.
+    path = each_path
+    data = (SAMPLES / "pf4_L0231_w01_markers.stdf").read_bytes()
+    whole = Decoder(Limits(batch_bytes=1 << 16), path=path)
+    want = collect(whole.feed(data) + whole.close())
+    dec = Decoder(Limits(batch_bytes=1 << 16), path=path)
+    got: list[tuple[str, pa.Table]] = []
+    views = []
+    for k in range(0, len(data), 40_000):  # pieces that end inside records
+        got += dec.feed(data[k:k + 40_000])
+        views.append(memoryview(dec._buf))  # a lingering export of the held bytes
+    got += dec.close()
+    tables = collect(got)
+    assert sorted(tables) == sorted(want)
+    for name in want:
+        assert tables[name].equals(want[name]), name
+    for v in views:
+        v.release()

@@ -90,9 +90,9 @@ class Decoder:
             with memoryview(data) as view:
                 out, used = self._process(view)
                 if not self._stopped:
-                    self._buf += view[used:]
+                    self._append(view[used:])
             return out
-        self._buf += data
+        self._append(data)
         # At least the 6-byte FAR: the byte order is read from it, so a smaller batch
         # must wait for more data rather than call the stream too short.
         if len(self._buf) < need:
@@ -126,8 +126,23 @@ class Decoder:
     def _process_held(self) -> list[tuple[str, pa.Table]]:
         with memoryview(self._buf) as view:
             out, used = self._process(view)
-        del self._buf[:used]
+        self._drop(used)
         return out
+
+    # The held bytes are resized in place, unless something still views them (a view a
+    # caller keeps, an object the garbage collector has not freed yet): then a new
+    # buffer takes over and the old one stays as it is for whoever still reads it.
+    def _append(self, data: bytes | memoryview) -> None:
+        try:
+            self._buf += data
+        except BufferError:
+            self._buf = self._buf + data
+
+    def _drop(self, n: int) -> None:
+        try:
+            del self._buf[:n]
+        except BufferError:
+            self._buf = self._buf[n:]
 
     def _process(self, buf: memoryview) -> tuple[list[tuple[str, pa.Table]], int]:
         """Decode the complete records at the start of ``buf``; returns the tables and
