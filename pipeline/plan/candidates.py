@@ -5,9 +5,10 @@ marginal saving is the makespan with that overlap forbidden (on every site) minu
 plan's makespan: what the plan would lose without it. Zero means other overlaps can do
 the same work — common when several blocks could fill the same gap. So each block is
 priced too, with all its overlaps at once: the makespan with that block kept apart from
-every other block on its site, minus the plan's. Pricing costs one solve each, so only
-the pairs and blocks that overlap longest are priced (``limit`` each); the rest are
-counted.
+every other block on its site, minus the plan's. Pricing costs one solve each (the
+planner's ``solve`` starts it from the plan's schedule and stops it at the plan's
+bound), so only the pairs and blocks that overlap longest are priced (``limit`` each);
+the rest are counted. For steps that add up to the plan, see ``roadmap``.
 """
 
 from __future__ import annotations

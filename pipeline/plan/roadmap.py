@@ -87,7 +87,7 @@ class Step:
 
 @dataclass
 class _State:
-    spec: PlanSpec
+    spec: PlanSpec             # the program after the step (its kept_serial chain)
     moved: set[str]
     starts: list[int]          # the current step's schedule, in its problem's activities
     problem: Problem
