@@ -11,8 +11,8 @@ proven optimal, or within 2 % of the lower bound, in under 10 s.
     python bench/bench_plan.py [--time-limit 8] [--workers 2] [--seeds 7 8 9 10 11]
     python bench/bench_plan.py --maps      # whole `tandem plan --json` on generated lots
 
-Each seed is one instance; the planner's CP-SAT (``solve_cpsat_staged``: the greedy
-schedule as the first hint, then the site-ordered search, then the full model again).
+Each seed is one instance; the planner's CP-SAT (``solve_cpsat_staged``: the whole model
+from the greedy schedule for a third of the time, then the search over sites).
 
 ``--maps`` writes the 24 x 8 map (``plan_maps.large(7, 24, 8)``) and the 12 x 4 lot with
 a shared RF meter (``plan_maps.rf_lot(1)``) as timing-CSV lots, ingests each into a store

@@ -321,21 +321,35 @@ def heads_tails(problem: Problem) -> tuple[list[int], list[int]]:
 
 def lower_bound_us(problem: Problem) -> int:
     """A makespan no schedule can beat: the largest of the critical path (longest chain
-    of precedences) and, for every pool, its energy bound — the activities drawing on it
-    need sum(duration x amount) / capacity of time, which cannot start before the
-    earliest of their heads nor end later than makespan minus the smallest tail. For the
-    power pool that is the power-time area over the power limit; for the parallel pool
-    the site's total over the parallel limit; for a shared pool its load over its count."""
+    of precedences) and, for every pool, its energy bounds. The activities drawing on a
+    pool need sum(duration x amount) / capacity of time; those whose head is at least h
+    cannot start before h nor end later than makespan minus the smallest of their tails,
+    so makespan >= h + their area / capacity + that tail, for every h (and the same
+    read backwards, over the activities whose tail is at least t). For the power pool
+    the area is power-time over the power limit; for the parallel pool a site's total
+    over the parallel limit; for a shared pool its load over its count. Taking every
+    threshold, not only the earliest head, is what sees a pinned first block: nothing
+    else starts before it ends, so the rest of the site's work comes after it."""
     if not problem.activities:
         return 0
     head, tail = heads_tails(problem)
     acts = problem.activities
     bound = max(h + a.duration_us + t for h, a, t in zip(head, acts, tail, strict=True))
     for pool in problem.pools:
-        members = [i for i, q in pool.demands if q > 0]
-        if not members:
-            continue
-        area = sum(acts[i].duration_us * q for i, q in pool.demands)
-        bound = max(bound, min(head[i] for i in members) + math.ceil(area / pool.capacity)
-                    + min(tail[i] for i in members))
+        members = [(i, q) for i, q in pool.demands if q > 0]
+        if members:
+            bound = max(bound, _energy_bound(members, head, tail, acts, pool.capacity),
+                        _energy_bound(members, tail, head, acts, pool.capacity))
     return bound
+
+
+def _energy_bound(members: Sequence[tuple[int, int]], head: Sequence[int],
+                  tail: Sequence[int], acts: Sequence[Activity], capacity: int) -> int:
+    """max over h of h + area(members with head >= h) / capacity + their least tail
+    (called with heads and tails swapped for the backward reading)."""
+    best, area, least = 0, 0, math.inf
+    for i, q in sorted(members, key=lambda m: -head[m[0]]):  # latest head first
+        area += acts[i].duration_us * q
+        least = min(least, tail[i])
+        best = max(best, head[i] + math.ceil(area / capacity) + int(least))
+    return best

@@ -1,8 +1,8 @@
 """Solvers of the plan's ``Problem``; each is ``solve(problem, time_limit_s) -> Solution``.
 
 - ``cpsat``: OR-Tools CP-SAT, exact given time (``solve_cpsat_staged``: when shared pools
-  couple the sites, a middle stage searches with the sites taking each shared block in
-  site order, which breaks their near-symmetry, then the full model goes on from it).
+  couple the sites, the whole model for a third of the time, then a search that
+  re-solves one site at a time with the shared blocks free to move).
   Fixed-size interval variables; a pool of capacity 1 whose members each take 1 becomes
   NoOverlap, any other pool Cumulative;
   precedences are linear. Deterministic: a fixed seed and CP-SAT's interleaved search
@@ -26,6 +26,7 @@ from __future__ import annotations
 import math
 import time
 from collections.abc import Callable, Mapping, Sequence
+from typing import Any
 
 from .model import Problem, Solution, heads_tails, lower_bound_us, make_solution
 from .sgs import SerialSGS, justify, left_shift, schedule_by_priority
@@ -129,6 +130,65 @@ def solve_exhaustive(problem: Problem, time_limit_s: float = 60.0) -> Solution:
 # ------------------------------------------------------------------ CP-SAT
 
 
+def _cpsat_model(problem: Problem, horizon: int, starts: Sequence[int],
+                 free: Sequence[int] | None = None) -> tuple[Any, dict[int, Any]]:
+    """The CP-SAT model of ``problem`` within ``horizon``: a start variable per free
+    activity (default: all), the others fixed at ``starts``; only the constraints with a
+    free activity in them. The start variables, by activity."""
+    from ortools.sat.python import cp_model
+
+    acts = problem.activities
+    head, tail = heads_tails(problem)
+    move = set(range(len(acts))) if free is None else set(free)
+    m = cp_model.CpModel()
+    var = {i: m.new_int_var(head[i], horizon - acts[i].duration_us - tail[i], f"s{i}")
+           for i in sorted(move)}
+
+    def begin(i: int) -> Any:
+        return var[i] if i in move else starts[i]
+
+    interval: dict[int, Any] = {}
+
+    def span(i: int) -> Any:
+        if i not in interval:
+            interval[i] = m.new_fixed_size_interval_var(begin(i), acts[i].duration_us, f"i{i}")
+        return interval[i]
+
+    for first, then in problem.precedences:
+        if first in move or then in move:
+            m.add(begin(then) >= begin(first) + acts[first].duration_us)
+    for pool in problem.pools:
+        if not any(i in move for i, _ in pool.demands):
+            continue
+        members = [span(i) for i, _ in pool.demands]
+        if pool.capacity == 1 and all(q == 1 for _, q in pool.demands):
+            m.add_no_overlap(members)
+        else:
+            m.add_cumulative(members, [q for _, q in pool.demands], pool.capacity)
+    return m, var
+
+
+def _cpsat_run(model: Any, time_limit_s: float, workers: int, seed: int,
+               gap: float = 0.0) -> tuple[Any, Any]:
+    """``model`` solved with the planner's parameters: the solver and its status code."""
+    from ortools.sat.python import cp_model
+
+    solver = cp_model.CpSolver()
+    solver.parameters.max_time_in_seconds = max(time_limit_s, 0.01)
+    # A deterministic work budget that normally ends the search before the wall clock
+    # does: then a loaded machine gives the same plan as an idle one.
+    solver.parameters.max_deterministic_time = max(time_limit_s / 2, 0.005)
+    solver.parameters.num_workers = workers
+    # Interleaved search runs CP-SAT's portfolio (including its lower-bound and LNS
+    # workers) in fixed batches: the same answer for the same input whatever the thread
+    # timing, as long as the solve ends before the time limit.
+    solver.parameters.interleave_search = workers > 1
+    solver.parameters.random_seed = seed
+    if gap > 0:
+        solver.parameters.relative_gap_limit = gap
+    return solver, solver.solve(model)
+
+
 def solve_cpsat(problem: Problem, time_limit_s: float = 10.0, workers: int = 2,
                 seed: int = 0, hint: Sequence[int] | None = None,
                 known_bound_us: int = 0, gap: float = 0.0) -> Solution:
@@ -149,98 +209,109 @@ def solve_cpsat(problem: Problem, time_limit_s: float = 10.0, workers: int = 2,
     if hint and horizon <= bound:  # the start already meets the bound: nothing to search
         return make_solution(problem, "optimal", hint, bound, "cpsat (start meets bound)",
                              time.perf_counter() - t0)
-    head, tail = heads_tails(problem)
-    m = cp_model.CpModel()
-    start = [m.new_int_var(head[i], horizon - a.duration_us - tail[i], f"s{i}")
-             for i, a in enumerate(acts)]
-    interval = [m.new_fixed_size_interval_var(start[i], a.duration_us, f"i{i}")
-                for i, a in enumerate(acts)]
-    for first, then in problem.precedences:
-        m.add(start[then] >= start[first] + acts[first].duration_us)
-    for pool in problem.pools:
-        members = [interval[i] for i, _ in pool.demands]
-        if pool.capacity == 1 and all(q == 1 for _, q in pool.demands):
-            m.add_no_overlap(members)
-        else:
-            m.add_cumulative(members, [q for _, q in pool.demands], pool.capacity)
+    m, start = _cpsat_model(problem, horizon, hint)
     makespan = m.new_int_var(min(bound, horizon), horizon, "makespan")
     for i, a in enumerate(acts):
         if not problem.successors[i]:
             m.add(makespan >= start[i] + a.duration_us)
     m.minimize(makespan)
-    for v, s in zip(start, hint, strict=True):
-        m.add_hint(v, s)
-    solver = cp_model.CpSolver()
-    solver.parameters.max_time_in_seconds = max(time_limit_s, 0.01)
-    # A deterministic work budget that normally ends the search before the wall clock
-    # does: then a loaded machine gives the same plan as an idle one.
-    solver.parameters.max_deterministic_time = max(time_limit_s / 2, 0.005)
-    solver.parameters.num_workers = workers
-    # Interleaved search runs CP-SAT's portfolio (including its lower-bound and LNS
-    # workers) in fixed batches: the same answer for the same input whatever the thread
-    # timing, as long as the solve ends before the time limit.
-    solver.parameters.interleave_search = workers > 1
-    solver.parameters.random_seed = seed
-    if gap > 0:
-        solver.parameters.relative_gap_limit = gap
-    code = solver.solve(m)
+    for i, s in enumerate(hint):
+        m.add_hint(start[i], s)
+    solver, code = _cpsat_run(m, time_limit_s, workers, seed, gap)
     wall = time.perf_counter() - t0
     if code == cp_model.INFEASIBLE:  # cannot happen when the hint is valid; kept honest
         return Solution("infeasible", None, 0.0, False, (), "cpsat", wall)
     if code not in (cp_model.OPTIMAL, cp_model.FEASIBLE):
         return Solution("unknown", None, bound / 1000, False, (), "cpsat", wall)
-    starts = left_shift(problem, [solver.value(v) for v in start])
+    starts = left_shift(problem, [solver.value(start[i])
+                                  for i in range(len(acts))])
     bound = max(bound, math.ceil(solver.best_objective_bound - 1e-6))
     # With a gap limit CP-SAT says OPTIMAL once within the gap: then only the bound proves.
     status = "optimal" if code == cp_model.OPTIMAL and gap <= 0 else "feasible"
     return make_solution(problem, status, starts, bound, "cpsat", wall)
 
 
-def site_ordered(problem: Problem) -> Problem:
-    """A restriction of ``problem`` for the search only: on every touchdown-wide pool,
-    the sites take each block in site order (each one's turn ends before the next site's
-    begins). Sites are near copies of one another, so this removes most of the
-    equivalent orders a search would otherwise try; a schedule of it is a schedule of
-    the problem, but its bound is not a bound of the problem."""
-    extra: list[tuple[int, int]] = []
+def resolve_site(problem: Problem, starts: Sequence[int], site: int, time_limit_s: float,
+                 workers: int = 2, seed: int = 0) -> list[int]:
+    """One neighbourhood of the site search: every activity of ``site`` and every
+    activity on a touchdown-wide pool may move, the rest stay where ``starts`` has them;
+    CP-SAT shortens the latest end among the activities that move (that site's, and
+    the shared blocks', which packs the shared pools early and leaves the other sites
+    room), no activity ending after the present makespan. The new starts (``starts``
+    itself when nothing better is found): always a schedule of the whole problem, never
+    longer."""
+    from ortools.sat.python import cp_model
+
     acts = problem.activities
-    for pool in problem.pools:
-        if pool.kind != "shared":
-            continue
-        by_block: dict[str, list[int]] = {}
-        for i, _ in pool.demands:
-            by_block.setdefault(acts[i].block, []).append(i)
-        for ids in by_block.values():
-            ids.sort(key=lambda i: acts[i].site)
-            extra += list(zip(ids, ids[1:], strict=False))
-    return Problem(acts, problem.precedences + tuple(dict.fromkeys(extra)), problem.pools)
+    mine = [i for i, a in enumerate(acts) if a.site == site]
+    free = sorted(set(mine) | {i for p in problem.pools if p.kind == "shared"
+                                for i, _ in p.demands})
+    horizon = max(s + a.duration_us for s, a in zip(starts, acts, strict=True))
+    m, var = _cpsat_model(problem, horizon, starts, free)
+    end = m.new_int_var(0, horizon, "site_end")
+    for i in free:
+        m.add(end >= var[i] + acts[i].duration_us)
+    m.minimize(end)
+    for i in free:
+        m.add_hint(var[i], starts[i])
+    solver, code = _cpsat_run(m, time_limit_s, workers, seed)
+    if code not in (cp_model.OPTIMAL, cp_model.FEASIBLE):
+        return list(starts)
+    out = list(starts)
+    for i in free:
+        out[i] = solver.value(var[i])
+    return out
+
+
+def site_search(problem: Problem, starts: Sequence[int], bound_us: int, time_limit_s: float,
+                workers: int = 2, seed: int = 0, rounds: int = 1000) -> list[int]:
+    """A large-neighbourhood search over sites: in each round, every site in turn (the
+    one ending last first) is re-solved by ``resolve_site``, then the schedule is
+    left-shifted. Sites are near copies coupled only by the touchdown-wide pools, so a
+    site's own problem is small enough for CP-SAT to pack tightly while the shared
+    blocks of the other sites make room. Stops at ``time_limit_s``, when a round finds
+    nothing, or when the makespan meets ``bound_us``; never longer than ``starts``."""
+    t0 = time.perf_counter()
+    acts = problem.activities
+    sites = sorted({a.site for a in acts})
+    per = max(time_limit_s / (2 * len(sites)), 0.05) if sites else 0.0
+    best = list(starts)
+
+    def ends(st: Sequence[int]) -> dict[int, int]:
+        out: dict[int, int] = {}
+        for s, a in zip(st, acts, strict=True):
+            out[a.site] = max(out.get(a.site, 0), s + a.duration_us)
+        return out
+
+    for _ in range(rounds):
+        before = ends(best)
+        for site in sorted(sites, key=lambda k: (-before[k], k)):
+            left = time_limit_s - (time.perf_counter() - t0)
+            if left <= 0.02 or max(ends(best).values()) <= bound_us:
+                return best
+            best = resolve_site(problem, best, site, min(per, left), workers, seed)
+        best = left_shift(problem, best)
+        if ends(best) == before:
+            break
+    return best
 
 
 def solve_cpsat_staged(problem: Problem, time_limit_s: float = 10.0, workers: int = 2,
                        seed: int = 0) -> Solution:
-    """CP-SAT in three stages when touchdown-wide pools couple the sites: the problem
-    for half the time (the answer, if it is proven); then ``site_ordered`` from that
-    schedule for a quarter; then the problem again from the better of the two for the
-    rest, knowing the first bound. The best schedule of the three, the larger bound.
-    Without shared pools, or when the first stage proves its answer, one stage."""
+    """CP-SAT in two stages when touchdown-wide pools couple the sites: the whole problem
+    for a third of the time (the answer, if it is proven; its bound is the bound), then
+    ``site_search`` from that schedule for the rest. Without shared pools, or when the
+    first stage proves its answer, one stage."""
     t0 = time.perf_counter()
     if not any(p.kind == "shared" for p in problem.pools):
         return solve_cpsat(problem, time_limit_s, workers, seed)
-    first = solve_cpsat(problem, time_limit_s / 2, workers, seed)
+    first = solve_cpsat(problem, time_limit_s / 3, workers, seed)
     if first.makespan_ms is None or first.proven_optimal:
         return first
-    ordered = solve_cpsat(site_ordered(problem), time_limit_s / 4, workers, seed,
-                          hint=first.starts_us)
-    start = ordered if ordered.makespan_ms is not None and \
-        ordered.makespan_ms < first.makespan_ms else first
     bound_us = int(round(first.lower_bound_ms * 1000))
     left = max(time_limit_s - (time.perf_counter() - t0), 0.05)
-    last = solve_cpsat(problem, left, workers, seed, hint=start.starts_us,
-                       known_bound_us=bound_us)
-    best = min((s for s in (first, ordered, last) if s.makespan_ms is not None),
-               key=lambda s: s.makespan_ms or 0.0)
-    bound_us = max(bound_us, int(round(last.lower_bound_ms * 1000)))
-    return make_solution(problem, "feasible", best.starts_us, bound_us, "cpsat (staged)",
+    starts = site_search(problem, first.starts_us, bound_us, left, workers, seed)
+    return make_solution(problem, "feasible", starts, bound_us, "cpsat (site search)",
                          time.perf_counter() - t0)
 
 
