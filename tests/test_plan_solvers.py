@@ -249,10 +249,8 @@ def test_energy_bound_counts_the_work_after_a_pinned_first_block() -> None:
         assert sol.status == "optimal" and sol.makespan_ms == pytest.approx(50.0)
 
 
-def _shared_cases(max_acts: int) -> list[PlanSpec]:
-    specs = (random_spec(seed, max_acts) for seed in range(200))
-    return [s for s in specs if len(s.sites) > 1
-            and any(p.kind == "shared" for p in build_problem(s).pools)]
+def _couples_sites(spec: PlanSpec) -> bool:
+    return len(spec.sites) > 1 and any(p.kind == "shared" for p in build_problem(spec).pools)
 
 
 def test_site_search_keeps_a_feasible_schedule_and_never_lengthens(
@@ -260,10 +258,10 @@ def test_site_search_keeps_a_feasible_schedule_and_never_lengthens(
     """From the greedy schedule, re-solving one site at a time (the shared blocks free):
     every result is a schedule of the spec (the independent checker), never longer than
     the start, and never shorter than the exhaustive optimum on the small cases."""
-    small = [random_spec(seed) for seed in SEEDS]
-    cases = [(s, optimum[k]) for k, s in enumerate(small)
-             if len(s.sites) > 1 and any(p.kind == "shared" for p in build_problem(s).pools)]
-    cases += [(s, None) for s in _shared_cases(24)[:6]]
+    cases: list[tuple[PlanSpec, Solution | None]] = [
+        (random_spec(k), optimum[k]) for k in SEEDS if _couples_sites(random_spec(k))]
+    larger = (random_spec(seed, 24) for seed in range(200))
+    cases += [(s, None) for s in larger if _couples_sites(s)][:6]
     assert len(cases) >= 10
     for spec, best in cases:
         problem = build_problem(spec)

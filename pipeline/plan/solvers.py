@@ -223,8 +223,7 @@ def solve_cpsat(problem: Problem, time_limit_s: float = 10.0, workers: int = 2,
         return Solution("infeasible", None, 0.0, False, (), "cpsat", wall)
     if code not in (cp_model.OPTIMAL, cp_model.FEASIBLE):
         return Solution("unknown", None, bound / 1000, False, (), "cpsat", wall)
-    starts = left_shift(problem, [solver.value(start[i])
-                                  for i in range(len(acts))])
+    starts = left_shift(problem, [solver.value(start[i]) for i in range(len(acts))])
     bound = max(bound, math.ceil(solver.best_objective_bound - 1e-6))
     # With a gap limit CP-SAT says OPTIMAL once within the gap: then only the bound proves.
     status = "optimal" if code == cp_model.OPTIMAL and gap <= 0 else "feasible"
@@ -251,9 +250,8 @@ def resolve_site(problem: Problem, starts: Sequence[int], site: int, time_limit_
     end = m.new_int_var(0, horizon, "site_end")
     for i in free:
         m.add(end >= var[i] + acts[i].duration_us)
-    m.minimize(end)
-    for i in free:
         m.add_hint(var[i], starts[i])
+    m.minimize(end)
     solver, code = _cpsat_run(m, time_limit_s, workers, seed)
     if code not in (cp_model.OPTIMAL, cp_model.FEASIBLE):
         return list(starts)
@@ -264,7 +262,7 @@ def resolve_site(problem: Problem, starts: Sequence[int], site: int, time_limit_
 
 
 def site_search(problem: Problem, starts: Sequence[int], bound_us: int, time_limit_s: float,
-                workers: int = 2, seed: int = 0, rounds: int = 1000) -> list[int]:
+                workers: int = 2, seed: int = 0) -> list[int]:
     """A large-neighbourhood search over sites: in each round, every site in turn (the
     one ending last first) is re-solved by ``resolve_site``, then the schedule is
     left-shifted. Sites are near copies coupled only by the touchdown-wide pools, so a
@@ -283,7 +281,7 @@ def site_search(problem: Problem, starts: Sequence[int], bound_us: int, time_lim
             out[a.site] = max(out.get(a.site, 0), s + a.duration_us)
         return out
 
-    for _ in range(rounds):
+    while True:
         before = ends(best)
         for site in sorted(sites, key=lambda k: (-before[k], k)):
             left = time_limit_s - (time.perf_counter() - t0)
