@@ -29,6 +29,7 @@ from pipeline.plan.model import (
 from pipeline.plan.solvers import (
     SOLVERS,
     resolve_site,
+    site_ends,
     site_search,
     solve,
     solve_exhaustive,
@@ -260,6 +261,11 @@ def _couples_sites(spec: PlanSpec) -> bool:
     return len(spec.sites) > 1 and any(p.kind == "shared" for p in build_problem(spec).pools)
 
 
+def _coupled_larger(n: int) -> list[PlanSpec]:
+    """The first ``n`` random specs of up to 24 activities whose sites share a pool."""
+    return [s for s in (random_spec(seed, 24) for seed in range(200)) if _couples_sites(s)][:n]
+
+
 def test_site_search_keeps_a_feasible_schedule_and_never_lengthens(
         optimum: dict[int, Solution]) -> None:
     """From the greedy schedule, re-solving one site at a time (the shared blocks free):
@@ -267,8 +273,7 @@ def test_site_search_keeps_a_feasible_schedule_and_never_lengthens(
     the start, and never shorter than the exhaustive optimum on the small cases."""
     cases: list[tuple[PlanSpec, Solution | None]] = [
         (random_spec(k), optimum[k]) for k in SEEDS if _couples_sites(random_spec(k))]
-    larger = (random_spec(seed, 24) for seed in range(200))
-    cases += [(s, None) for s in larger if _couples_sites(s)][:6]
+    cases += [(s, None) for s in _coupled_larger(6)]
     assert len(cases) >= 10
     for spec, best in cases:
         problem = build_problem(spec)
@@ -282,27 +287,20 @@ def test_site_search_keeps_a_feasible_schedule_and_never_lengthens(
             assert after.makespan_ms >= best.makespan_ms - EPS
 
 
-def _site_ends(problem: Problem, starts: Sequence[int]) -> dict[int, int]:
-    out: dict[int, int] = {}
-    for s, a in zip(starts, problem.activities, strict=True):
-        out[a.site] = max(out.get(a.site, 0), s + a.duration_us)
-    return out
-
-
 def test_resolve_site_lets_no_other_site_end_later() -> None:
     """One neighbourhood moves a site's blocks and every shared block; the other sites'
     ends must not grow (their shared blocks stay within their present ends), and the
     result is still a schedule of the spec (the independent checker)."""
-    cases = [s for s in (random_spec(seed, 24) for seed in range(200)) if _couples_sites(s)][:4]
+    cases = _coupled_larger(4)
     assert cases
     for spec in cases:
         problem = build_problem(spec)
         starts = list(solve_greedy(problem).starts_us)
 
-        before = _site_ends(problem, starts)
+        before = site_ends(problem, starts)
         site = max(before, key=lambda k: before[k])
         after_starts = resolve_site(problem, starts, site, 0.5)
-        after = _site_ends(problem, after_starts)
+        after = site_ends(problem, after_starts)
         assert all(after[k] <= before[k] for k in before)
         done = make_solution(problem, "feasible", after_starts, 0, "resolve", 0.0)
         assert check_schedule(spec, done.schedule) == []

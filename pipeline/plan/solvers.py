@@ -169,20 +169,22 @@ def _cpsat_model(problem: Problem, horizon: int, starts: Sequence[int],
 
 
 def _cpsat_run(model: Any, time_limit_s: float, workers: int, seed: int,
-               gap: float = 0.0) -> tuple[Any, Any]:
-    """``model`` solved with the planner's parameters: the solver and its status code."""
+               gap: float = 0.0, deterministic: bool = True) -> tuple[Any, Any]:
+    """``model`` solved with the planner's parameters: the solver and its status code.
+    ``deterministic=False``: the wall clock alone limits it and the workers run free."""
     from ortools.sat.python import cp_model
 
     solver = cp_model.CpSolver()
     solver.parameters.max_time_in_seconds = max(time_limit_s, 0.01)
     # A deterministic work budget that normally ends the search before the wall clock
     # does: then a loaded machine gives the same plan as an idle one.
-    solver.parameters.max_deterministic_time = max(time_limit_s / 2, 0.005)
+    if deterministic:
+        solver.parameters.max_deterministic_time = max(time_limit_s / 2, 0.005)
     solver.parameters.num_workers = workers
     # Interleaved search runs CP-SAT's portfolio (including its lower-bound and LNS
     # workers) in fixed batches: the same answer for the same input whatever the thread
     # timing, as long as the solve ends before the time limit.
-    solver.parameters.interleave_search = workers > 1
+    solver.parameters.interleave_search = deterministic and workers > 1
     solver.parameters.random_seed = seed
     if gap > 0:
         solver.parameters.relative_gap_limit = gap
@@ -230,6 +232,14 @@ def solve_cpsat(problem: Problem, time_limit_s: float = 10.0, workers: int = 2,
     return make_solution(problem, status, starts, bound, "cpsat", wall)
 
 
+def site_ends(problem: Problem, starts: Sequence[int]) -> dict[int, int]:
+    """When each site's last activity ends under ``starts``, by site."""
+    out: dict[int, int] = {}
+    for s, a in zip(starts, problem.activities, strict=True):
+        out[a.site] = max(out.get(a.site, 0), s + a.duration_us)
+    return out
+
+
 def resolve_site(problem: Problem, starts: Sequence[int], site: int, time_limit_s: float,
                  workers: int = 8, seed: int = 0) -> list[int]:
     """One neighbourhood of the site search: every activity of ``site`` and every
@@ -246,9 +256,7 @@ def resolve_site(problem: Problem, starts: Sequence[int], site: int, time_limit_
     mine = [i for i, a in enumerate(acts) if a.site == site]
     free = sorted(set(mine) | {i for p in problem.pools if p.kind == "shared"
                                 for i, _ in p.demands})
-    site_end: dict[int, int] = {}
-    for s, a in zip(starts, acts, strict=True):
-        site_end[a.site] = max(site_end.get(a.site, 0), s + a.duration_us)
+    site_end = site_ends(problem, starts)
     horizon = max(site_end.values())
     m, var = _cpsat_model(problem, horizon, starts, free)
     end = m.new_int_var(0, horizon, "site_end")
@@ -259,11 +267,7 @@ def resolve_site(problem: Problem, starts: Sequence[int], site: int, time_limit_
             m.add(var[i] + acts[i].duration_us <= site_end[acts[i].site])
         m.add_hint(var[i], starts[i])
     m.minimize(end)
-    solver = cp_model.CpSolver()
-    solver.parameters.max_time_in_seconds = max(time_limit_s, 0.01)
-    solver.parameters.num_workers = workers
-    solver.parameters.random_seed = seed
-    code = solver.solve(m)
+    solver, code = _cpsat_run(m, time_limit_s, workers, seed, deterministic=False)
     if code not in (cp_model.OPTIMAL, cp_model.FEASIBLE):
         return list(starts)
     out = list(starts)
@@ -286,21 +290,15 @@ def site_search(problem: Problem, starts: Sequence[int], bound_us: int, time_lim
     per = max(time_limit_s / (2 * len(sites)), 0.05) if sites else 0.0
     best = list(starts)
 
-    def ends(st: Sequence[int]) -> dict[int, int]:
-        out: dict[int, int] = {}
-        for s, a in zip(st, acts, strict=True):
-            out[a.site] = max(out.get(a.site, 0), s + a.duration_us)
-        return out
-
     while True:
-        before = ends(best)
+        before = site_ends(problem, best)
         for site in sorted(sites, key=lambda k: (-before[k], k)):
             left = time_limit_s - (time.perf_counter() - t0)
-            if left <= 0.02 or max(ends(best).values()) <= bound_us:
+            if left <= 0.02 or max(site_ends(problem, best).values()) <= bound_us:
                 return best
             best = resolve_site(problem, best, site, min(per, left), 4 * workers, seed)
         best = left_shift(problem, best)
-        if ends(best) == before:
+        if site_ends(problem, best) == before:
             break
     return best
 
