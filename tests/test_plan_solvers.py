@@ -12,6 +12,7 @@ from __future__ import annotations
 
 import itertools
 import random
+import time
 from collections.abc import Sequence
 
 import pytest
@@ -285,6 +286,40 @@ def test_site_search_keeps_a_feasible_schedule_and_never_lengthens(
         assert after.makespan_ms <= start.makespan_ms + EPS
         if best is not None and best.makespan_ms is not None:
             assert after.makespan_ms >= best.makespan_ms - EPS
+
+
+def test_site_search_takes_the_latest_site_and_stops_when_every_site_is_stuck(
+        monkeypatch: pytest.MonkeyPatch) -> None:
+    """The search's order, with neighbourhoods that never find anything (a stand-in for
+    ``resolve_site``): two sites, two 10 ms blocks each, one at a time; site 1's second
+    block left 40 ms late. By hand: site 1 (ending at 60 ms) goes first; the left-shift
+    after it brings site 1 back to 20 ms, a gain, so site 1 is in play again and goes
+    next (a tie at 20 ms, the lower site first), finds nothing, then site 2 finds
+    nothing, and with both set aside the search stops, long before its time limit. Each
+    neighbourhood gets its own solver seed."""
+    import pipeline.plan.solvers as solvers
+
+    spec = PlanSpec((1, 2), (BlockSpec("a", {1: 10.0, 2: 10.0}),
+                             BlockSpec("b", {1: 10.0, 2: 10.0})), parallel=1)
+    problem = build_problem(spec)
+    late = [0] * len(problem.activities)
+    for i, act in enumerate(problem.activities):
+        if act.block == "b":
+            late[i] = 50_000 if act.site == 1 else 10_000
+    calls: list[tuple[int, int]] = []
+
+    def nothing_found(problem: Problem, starts: Sequence[int], site: int, limit: float,
+                      workers: int = 8, seed: int = 0) -> list[int]:
+        calls.append((site, seed))
+        return list(starts)
+
+    monkeypatch.setattr(solvers, "resolve_site", nothing_found)
+    t0 = time.perf_counter()
+    out = site_search(problem, late, 0, 30.0, seed=5)
+    assert time.perf_counter() - t0 < 5.0
+    assert [site for site, _ in calls] == [1, 1, 2]
+    assert [seed for _, seed in calls] == [5, 6, 7]
+    assert site_ends(problem, out) == {1: 20_000, 2: 20_000}
 
 
 def test_resolve_site_lets_no_other_site_end_later() -> None:

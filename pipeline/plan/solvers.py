@@ -278,29 +278,36 @@ def resolve_site(problem: Problem, starts: Sequence[int], site: int, time_limit_
 
 def site_search(problem: Problem, starts: Sequence[int], bound_us: int, time_limit_s: float,
                 workers: int = 2, seed: int = 0) -> list[int]:
-    """A large-neighbourhood search over sites: in each round, every site in turn (the
-    one ending last first) is re-solved by ``resolve_site``, then the schedule is
-    left-shifted. Sites are near copies coupled only by the touchdown-wide pools, so a
-    site's own problem is small enough for CP-SAT to pack tightly while the shared
-    blocks of the other sites make room. Stops at ``time_limit_s``, when a round finds
-    nothing, or when the makespan meets ``bound_us``; never longer than ``starts``."""
+    """A large-neighbourhood search over sites: the site that ends last is re-solved by
+    ``resolve_site`` (each time with a fresh solver seed) and the schedule left-shifted,
+    again and again. A site whose neighbourhood finds nothing is set aside (the next
+    latest is taken) until some site gains, when every site is back in play: the time
+    goes to the sites that set the makespan, and a stuck one gets another try once the
+    shared blocks have moved. Sites are near copies coupled only by the touchdown-wide
+    pools, so a site's own problem is small enough for CP-SAT to pack tightly while the
+    shared blocks of the other sites make room. Stops at ``time_limit_s``, when every
+    site is set aside, or when the makespan meets ``bound_us``; never longer than
+    ``starts``."""
     t0 = time.perf_counter()
-    acts = problem.activities
-    sites = sorted({a.site for a in acts})
+    sites = sorted({a.site for a in problem.activities})
     per = max(time_limit_s / (2 * len(sites)), 0.05) if sites else 0.0
     best = list(starts)
-
+    stuck: set[int] = set()
+    attempt = 0
     while True:
-        before = site_ends(problem, best)
-        for site in sorted(sites, key=lambda k: (-before[k], k)):
-            left = time_limit_s - (time.perf_counter() - t0)
-            if left <= 0.02 or max(site_ends(problem, best).values()) <= bound_us:
-                return best
-            best = resolve_site(problem, best, site, min(per, left), 4 * workers, seed)
-        best = left_shift(problem, best)
-        if site_ends(problem, best) == before:
-            break
-    return best
+        left = time_limit_s - (time.perf_counter() - t0)
+        ends = site_ends(problem, best)
+        todo = [k for k in sites if k not in stuck]
+        if left <= 0.02 or not todo or max(ends.values()) <= bound_us:
+            return best
+        site = max(todo, key=lambda k: (ends[k], -k))
+        best = left_shift(problem, resolve_site(problem, best, site, min(per, left),
+                                                4 * workers, seed + attempt))
+        attempt += 1
+        if site_ends(problem, best)[site] < ends[site]:
+            stuck.clear()
+        else:
+            stuck.add(site)
 
 
 def solve_cpsat_staged(problem: Problem, time_limit_s: float = 10.0, workers: int = 2,
