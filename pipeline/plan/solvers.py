@@ -292,11 +292,11 @@ def site_search(problem: Problem, starts: Sequence[int], bound_us: int, time_lim
     sites = sorted({a.site for a in problem.activities})
     per = max(time_limit_s / (2 * len(sites)), 0.05) if sites else 0.0
     best = list(starts)
+    ends = site_ends(problem, best)
     stuck: set[int] = set()
     attempt = 0
     while True:
         left = time_limit_s - (time.perf_counter() - t0)
-        ends = site_ends(problem, best)
         todo = [k for k in sites if k not in stuck]
         if left <= 0.02 or not todo or max(ends.values()) <= bound_us:
             return best
@@ -304,10 +304,12 @@ def site_search(problem: Problem, starts: Sequence[int], bound_us: int, time_lim
         best = left_shift(problem, resolve_site(problem, best, site, min(per, left),
                                                 4 * workers, seed + attempt))
         attempt += 1
-        if site_ends(problem, best)[site] < ends[site]:
+        after = site_ends(problem, best)
+        if after[site] < ends[site]:
             stuck.clear()
         else:
             stuck.add(site)
+        ends = after
 
 
 def solve_cpsat_staged(problem: Problem, time_limit_s: float = 10.0, workers: int = 2,
